@@ -1,0 +1,95 @@
+package checkpoint
+
+import (
+	"bytes"
+	"math"
+	"slices"
+	"testing"
+)
+
+// TestConvertKnownBytes compares encodings with hand-worked little-endian
+// IEEE 754 / two's-complement bytes (1.0 = 0x3FF0000000000000 in binary64,
+// 0x3F800000 in binary32: IEEE 754-2008 §3.4 layout; -2 = 0xFFFFFFFE).
+func TestConvertKnownBytes(t *testing.T) {
+	tests := []struct {
+		name string
+		got  []byte
+		want []byte
+	}{
+		{"float64 1", Float64Bytes([]float64{1}), []byte{0, 0, 0, 0, 0, 0, 0xF0, 0x3F}},
+		{"float64 -2", Float64Bytes([]float64{-2}), []byte{0, 0, 0, 0, 0, 0, 0, 0xC0}},
+		{"float32 1", Float32Bytes([]float32{1}), []byte{0, 0, 0x80, 0x3F}},
+		{"int32 -2", Int32Bytes([]int32{-2}), []byte{0xFE, 0xFF, 0xFF, 0xFF}},
+		{"int64 258", Int64Bytes([]int64{258}), []byte{2, 1, 0, 0, 0, 0, 0, 0}},
+		{"uint64 max", Uint64Bytes([]uint64{math.MaxUint64}), bytes.Repeat([]byte{0xFF}, 8)},
+		{"empty", Float64Bytes(nil), []byte{}},
+	}
+	for _, tc := range tests {
+		if !bytes.Equal(tc.got, tc.want) {
+			t.Errorf("%s: % x, want % x", tc.name, tc.got, tc.want)
+		}
+	}
+}
+
+// TestConvertRoundTrip checks bit-exact round trips, including values a
+// resumed optimisation must keep exactly: signed zero, subnormals, NaN
+// payloads, infinities.
+func TestConvertRoundTrip(t *testing.T) {
+	f64 := []float64{0, math.Copysign(0, -1), math.SmallestNonzeroFloat64, math.MaxFloat64,
+		math.Inf(-1), math.Float64frombits(0x7FF8000000000123), 1.0 / 3}
+	g64, err := BytesFloat64(Float64Bytes(f64))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range f64 {
+		if math.Float64bits(g64[i]) != math.Float64bits(f64[i]) {
+			t.Errorf("float64 %d: %x, want %x", i, math.Float64bits(g64[i]), math.Float64bits(f64[i]))
+		}
+	}
+	f32 := []float32{0, float32(math.Copysign(0, -1)), math.SmallestNonzeroFloat32, math.Float32frombits(0x7FC00123), 1.0 / 3}
+	g32, err := BytesFloat32(Float32Bytes(f32))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range f32 {
+		if math.Float32bits(g32[i]) != math.Float32bits(f32[i]) {
+			t.Errorf("float32 %d: %x, want %x", i, math.Float32bits(g32[i]), math.Float32bits(f32[i]))
+		}
+	}
+	i32 := []int32{math.MinInt32, -1, 0, 1, math.MaxInt32}
+	if g, err := BytesInt32(Int32Bytes(i32)); err != nil || !slices.Equal(g, i32) {
+		t.Errorf("int32: %v %v", g, err)
+	}
+	i64 := []int64{math.MinInt64, -1, 0, 1, math.MaxInt64}
+	if g, err := BytesInt64(Int64Bytes(i64)); err != nil || !slices.Equal(g, i64) {
+		t.Errorf("int64: %v %v", g, err)
+	}
+	u64 := []uint64{0, 1, math.MaxUint64}
+	if g, err := BytesUint64(Uint64Bytes(u64)); err != nil || !slices.Equal(g, u64) {
+		t.Errorf("uint64: %v %v", g, err)
+	}
+}
+
+func TestConvertBadLength(t *testing.T) {
+	tests := []struct {
+		name string
+		fn   func([]byte) error
+		bad  []int
+	}{
+		{"float64", func(b []byte) error { _, err := BytesFloat64(b); return err }, []int{1, 7, 9, 15}},
+		{"float32", func(b []byte) error { _, err := BytesFloat32(b); return err }, []int{1, 3, 5}},
+		{"int32", func(b []byte) error { _, err := BytesInt32(b); return err }, []int{2, 6}},
+		{"int64", func(b []byte) error { _, err := BytesInt64(b); return err }, []int{4, 12}},
+		{"uint64", func(b []byte) error { _, err := BytesUint64(b); return err }, []int{3, 17}},
+	}
+	for _, tc := range tests {
+		for _, n := range tc.bad {
+			if err := tc.fn(make([]byte, n)); err == nil {
+				t.Errorf("%s: %d bytes accepted", tc.name, n)
+			}
+		}
+		if err := tc.fn(make([]byte, 16)); err != nil {
+			t.Errorf("%s: 16 bytes refused: %v", tc.name, err)
+		}
+	}
+}

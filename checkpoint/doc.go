@@ -1,0 +1,55 @@
+// Package checkpoint owns nightjar's run directory: the JSON manifest, the
+// binary state files holding optimiser state, the neighbour graph and the
+// affinity matrix, and the atomic writing of every file a run produces.
+//
+// The package stores bytes, not numbers: callers turn their slices into
+// sections with the little-endian helpers (Float64Bytes, BytesFloat32, …)
+// and decide what each section means. It never imports the numeric packages.
+//
+// # State file layout (format version 1)
+//
+// Every binary file written by this package ("state file", extension .njs)
+// has the same container layout. All integers are little-endian.
+//
+//	offset        size  field
+//	0             8     magic: 0x8A 'N' 'J' 'S' 'T' 'A' '\r' '\n'
+//	8             4     format version, uint32 (currently 1)
+//	12            1     kind length K, 1 ≤ K ≤ 64
+//	13            K     kind, printable ASCII (e.g. "state", "graph", "affinity")
+//	13+K          4     section count n, uint32
+//	then n table entries, each:
+//	              1     name length L, 1 ≤ L ≤ 255
+//	              L     name, valid UTF-8 without control characters, unique in the file
+//	              8     offset of the section's bytes from the start of the file, uint64
+//	              8     length of the section's bytes, uint64
+//	              4     CRC-32C (Castagnoli) of the section's bytes, uint32
+//	then          4     CRC-32C of every byte before this field (magic … last entry)
+//	then the section bytes, in table order, contiguous, without padding;
+//	the file ends exactly where the last section ends.
+//
+// The layout is canonical: a given kind and list of sections encode to exactly
+// one byte string, and a decoder accepts nothing else (no gaps, no overlap, no
+// trailing bytes). A reader checks, in order: the magic number (MagicError),
+// the format version (VersionError), the table and its checksum
+// (CorruptError without a section), the kind (KindError), then each section's
+// bounds and checksum (CorruptError naming the section). A truncated file
+// therefore always fails, naming the first section whose bytes are missing.
+//
+// CRC-32C is used because, like any 32-bit CRC whose generator has more
+// than one term, it detects every single-bit error and every error burst of
+// at most 32 bits (standard CRC theory, Peterson & Brown 1961), its
+// polynomial was chosen for a large Hamming distance on long blocks
+// (Castagnoli, Bräuer & Herrmann, "Optimization of cyclic redundancy-check
+// codes with 24 and 32 parity bits", IEEE Trans. Commun. 41(6), 1993), and
+// Go computes it with CPU instructions.
+// It guards against accidents (bad disks, torn writes), not against tampering.
+//
+// # Run directory
+//
+// A run directory (see Run) holds manifest.json, the artifacts written by
+// SaveArtifact (graph.njs, affinities.njs …), the two newest optimiser states
+// state-NNNNNNNNN.njs (nine-digit iteration number) and the final outputs the
+// caller writes with AtomicWrite. Every file is written to a temporary name in
+// the same directory, synced, renamed over the final name, and the directory is
+// synced, so a kill at any moment leaves either the old or the new file.
+package checkpoint
