@@ -1,0 +1,61 @@
+package figure
+
+import (
+	"fmt"
+	"io"
+	"math"
+
+	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/plotter"
+	"gonum.org/v1/plot/vg"
+)
+
+// TradeoffPoint is one run of a sweep on the accuracy-versus-speed chart.
+type TradeoffPoint struct {
+	Name    string  // label written beside the point
+	Seconds float64 // wall time (x axis)
+	Quality float64 // a score in [0, 1] (y axis); NaN points are left out
+}
+
+// DrawTradeoff writes a PNG chart of quality against wall time for the runs of
+// a sweep, each point labelled with its setting. The chart is small (a few
+// dozen points), so gonum/plot draws it.
+func DrawTradeoff(w io.Writer, title, quality string, pts []TradeoffPoint) error {
+	p := plot.New()
+	p.Title.Text = title
+	p.X.Label.Text = "wall time (s)"
+	p.Y.Label.Text = quality
+	var xys plotter.XYs
+	var labels []string
+	for _, pt := range pts {
+		if math.IsNaN(pt.Quality) || math.IsNaN(pt.Seconds) {
+			continue
+		}
+		xys = append(xys, plotter.XY{X: pt.Seconds, Y: pt.Quality})
+		labels = append(labels, pt.Name)
+	}
+	if len(xys) == 0 {
+		return fmt.Errorf("tradeoff chart: no run has both a time and a %s score", quality)
+	}
+	sc, err := plotter.NewScatter(xys)
+	if err != nil {
+		return fmt.Errorf("tradeoff chart: %w", err)
+	}
+	sc.GlyphStyle.Radius = vg.Points(3)
+	lb, err := plotter.NewLabels(plotter.XYLabels{XYs: xys, Labels: labels})
+	if err != nil {
+		return fmt.Errorf("tradeoff chart: %w", err)
+	}
+	for i := range lb.TextStyle {
+		lb.TextStyle[i].Font.Size = vg.Points(8)
+		lb.Offset = vg.Point{X: vg.Points(4), Y: vg.Points(2)}
+	}
+	p.Add(sc, lb, plotter.NewGrid())
+	p.X.Min = 0
+	wt, err := p.WriterTo(8*vg.Inch, 5*vg.Inch, "png")
+	if err != nil {
+		return fmt.Errorf("tradeoff chart: %w", err)
+	}
+	_, err = wt.WriteTo(w)
+	return err
+}
