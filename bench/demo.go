@@ -165,7 +165,7 @@ func Demo(n int, seed uint64) *ingest.Table {
 		Features: features,
 		ID:       &ingest.Column{Name: "id", Ints: ids},
 		Label:    &ingest.Column{Name: "population", Strings: labels},
-		Hash:     matrixHash(mat),
+		Hash:     ingest.Fingerprint(mat),
 		Format:   "demo",
 	}
 }

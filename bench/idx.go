@@ -220,7 +220,7 @@ func MNIST(dir string, n int) (*ingest.Table, error) {
 		Features: features,
 		ID:       &ingest.Column{Name: "id", Ints: ids},
 		Label:    &ingest.Column{Name: "digit", Strings: labels},
-		Hash:     matrixHash(mat),
+		Hash:     ingest.Fingerprint(mat),
 		Format:   "idx",
 	}, nil
 }

@@ -1,0 +1,160 @@
+package ingest
+
+import (
+	"fmt"
+	"path"
+	"strings"
+)
+
+// colInfo describes one input column for column selection, whatever the format.
+type colInfo struct {
+	name    string
+	numeric bool   // usable as a feature
+	typ     string // type name for messages
+}
+
+// selection is the outcome of column selection: indices into the input columns.
+type selection struct {
+	features  []int // in matrix column order
+	id, label int   // -1 when not requested
+}
+
+func (s selection) names(cols []colInfo) []string {
+	out := make([]string, len(s.features))
+	for j, c := range s.features {
+		out[j] = cols[c].name
+	}
+	return out
+}
+
+// isPattern reports whether s uses path.Match meta characters.
+func isPattern(s string) bool { return strings.ContainsAny(s, `*?[\`) }
+
+// selectColumns applies Options.Features, ID and Label to the input columns.
+//
+// Rules: an exact name must exist and be numeric; a glob pattern (path.Match) must be
+// valid and match at least one numeric column, and silently passes over non-numeric
+// columns and the id and label columns; a column matched twice is taken once, at its
+// first match. With no Features, every numeric column except ID and Label is taken,
+// in file order.
+func selectColumns(file string, cols []colInfo, opt Options) (selection, error) {
+	sel := selection{id: -1, label: -1}
+	find := func(name string) int {
+		for i, c := range cols {
+			if c.name == name {
+				return i
+			}
+		}
+		return -1
+	}
+	missing := func(name string) error {
+		return inputErr(file, name, 0, "no such column (the table has %s)", listNames(cols, 6))
+	}
+	if opt.ID != "" {
+		if sel.id = find(opt.ID); sel.id < 0 {
+			return sel, missing(opt.ID)
+		}
+	}
+	if opt.Label != "" {
+		if sel.label = find(opt.Label); sel.label < 0 {
+			return sel, missing(opt.Label)
+		}
+	}
+	if opt.ID != "" && opt.ID == opt.Label {
+		return sel, inputErr(file, opt.ID, 0, "the same column is requested as id and as label")
+	}
+	taken := make([]bool, len(cols))
+	passThrough := func(i int) bool { return i == sel.id || i == sel.label }
+	if len(opt.Features) == 0 {
+		for i, c := range cols {
+			if c.numeric && !passThrough(i) {
+				sel.features = append(sel.features, i)
+			}
+		}
+		if len(sel.features) == 0 {
+			return sel, inputErr(file, "", 0, "no numeric feature columns (the table has %s)", describeCols(cols, 6))
+		}
+		return sel, nil
+	}
+	for _, f := range opt.Features {
+		if !isPattern(f) {
+			i := find(f)
+			if i < 0 {
+				return sel, missing(f)
+			}
+			if !cols[i].numeric {
+				return sel, inputErr(file, f, 0, "feature column is not numeric (type %s)", cols[i].typ)
+			}
+			if !taken[i] {
+				taken[i] = true
+				sel.features = append(sel.features, i)
+			}
+			continue
+		}
+		if _, err := path.Match(f, ""); err != nil {
+			return sel, inputErr(file, "", 0, "bad feature pattern %q: %v", f, err)
+		}
+		matched, numeric := 0, 0
+		for i, c := range cols {
+			if ok, _ := path.Match(f, c.name); !ok {
+				continue
+			}
+			matched++
+			if !c.numeric || passThrough(i) {
+				continue
+			}
+			numeric++
+			if !taken[i] {
+				taken[i] = true
+				sel.features = append(sel.features, i)
+			}
+		}
+		switch {
+		case matched == 0:
+			return sel, inputErr(file, "", 0, "feature pattern %q matches no column (the table has %s)", f, listNames(cols, 6))
+		case numeric == 0:
+			return sel, inputErr(file, "", 0, "feature pattern %q matches no numeric column", f)
+		}
+	}
+	return sel, nil
+}
+
+// listNames lists up to max column names for messages, e.g. `"a", "b", … 12 more`.
+func listNames(cols []colInfo, max int) string {
+	if len(cols) == 0 {
+		return "no columns"
+	}
+	var b strings.Builder
+	b.WriteString("columns ")
+	for i, c := range cols {
+		if i == max {
+			fmt.Fprintf(&b, ", … %d more", len(cols)-max)
+			break
+		}
+		if i > 0 {
+			b.WriteString(", ")
+		}
+		fmt.Fprintf(&b, "%q", c.name)
+	}
+	return b.String()
+}
+
+// describeCols is listNames with the type of each column.
+func describeCols(cols []colInfo, max int) string {
+	if len(cols) == 0 {
+		return "no columns"
+	}
+	var b strings.Builder
+	b.WriteString("columns ")
+	for i, c := range cols {
+		if i == max {
+			fmt.Fprintf(&b, ", … %d more", len(cols)-max)
+			break
+		}
+		if i > 0 {
+			b.WriteString(", ")
+		}
+		fmt.Fprintf(&b, "%q %s", c.name, c.typ)
+	}
+	return b.String()
+}

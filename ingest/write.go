@@ -1,0 +1,218 @@
+package ingest
+
+import (
+	"errors"
+	"fmt"
+	"io"
+
+	"github.com/apache/arrow/go/v17/arrow"
+	"github.com/apache/arrow/go/v17/arrow/array"
+	"github.com/apache/arrow/go/v17/arrow/memory"
+	"github.com/apache/arrow/go/v17/parquet"
+	"github.com/apache/arrow/go/v17/parquet/compress"
+	"github.com/apache/arrow/go/v17/parquet/pqarrow"
+)
+
+// WriteChunkRows is the number of rows per Arrow record, and so per Parquet row
+// group, written by WriteEmbedding and WriteTable.
+const WriteChunkRows = 65536
+
+// errWriter remembers the first error of w and hides any Close method of w, so that
+// closing the Parquet writer neither closes the caller's writer nor loses the error.
+type errWriter struct {
+	w   io.Writer
+	err error
+}
+
+func (e *errWriter) Write(p []byte) (int, error) {
+	if e.err != nil {
+		return 0, e.err
+	}
+	n, err := e.w.Write(p)
+	if err != nil {
+		e.err = err
+	}
+	return n, err
+}
+
+// passField returns the Arrow field for a pass-through column: int64 for Ints,
+// string otherwise. def names the field when c.Name is "".
+func passField(c *Column, def string, forceText bool) arrow.Field {
+	name := c.Name
+	if name == "" {
+		name = def
+	}
+	if c.Ints != nil && !forceText {
+		return arrow.Field{Name: name, Type: arrow.PrimitiveTypes.Int64}
+	}
+	return arrow.Field{Name: name, Type: arrow.BinaryTypes.String}
+}
+
+// appendPass appends rows [lo, hi) of c to bld.
+func appendPass(bld array.Builder, c *Column, lo, hi int) {
+	switch b := bld.(type) {
+	case *array.Int64Builder:
+		b.AppendValues(c.Ints[lo:hi], nil)
+	case *array.StringBuilder:
+		if c.Strings != nil {
+			b.AppendValues(c.Strings[lo:hi], nil)
+			return
+		}
+		for i := lo; i < hi; i++ {
+			b.Append(c.String(i))
+		}
+	}
+}
+
+// writeParquet writes n rows to w as Parquet with schema sc, one record per
+// WriteChunkRows rows, dictionary-encoding column dictCol only ("" = none); fill appends rows [lo, hi) to the record builder.
+func writeParquet(w io.Writer, sc *arrow.Schema, dictCol string, n int, fill func(rb *array.RecordBuilder, lo, hi int)) error {
+	seen := map[string]bool{}
+	for _, f := range sc.Fields() {
+		if seen[f.Name] {
+			return fmt.Errorf("writing Parquet: column name %q used twice", f.Name)
+		}
+		seen[f.Name] = true
+	}
+	ew := &errWriter{w: w}
+	opts := []parquet.WriterProperty{
+		parquet.WithCompression(compress.Codecs.Snappy),
+		parquet.WithMaxRowGroupLength(WriteChunkRows),
+		parquet.WithDictionaryDefault(false), // numbers rarely repeat
+	}
+	if dictCol != "" {
+		opts = append(opts, parquet.WithDictionaryFor(dictCol, true)) // labels do
+	}
+	props := parquet.NewWriterProperties(opts...)
+	fw, err := pqarrow.NewFileWriter(sc, ew, props, pqarrow.DefaultWriterProps())
+	if err != nil {
+		return fmt.Errorf("writing Parquet: %w", err)
+	}
+	rb := array.NewRecordBuilder(memory.DefaultAllocator, sc)
+	defer rb.Release()
+	for lo := 0; lo < n; lo += WriteChunkRows {
+		hi := min(n, lo+WriteChunkRows)
+		fill(rb, lo, hi)
+		rec := rb.NewRecord()
+		err := fw.Write(rec)
+		rec.Release()
+		if err != nil {
+			return fmt.Errorf("writing Parquet: %w", errors.Join(err, ew.err))
+		}
+	}
+	if err := fw.Close(); err != nil {
+		return fmt.Errorf("writing Parquet: %w", err)
+	}
+	if ew.err != nil {
+		return fmt.Errorf("writing Parquet: %w", ew.err)
+	}
+	return nil
+}
+
+// WriteEmbedding writes an embedding as Parquet to w: the id column if id is non-nil
+// (int64 for an integer id, string otherwise), the label column (string) if label is
+// non-nil, then float64 columns "map_1" … "map_<dims>". y is N×dims row-major, rows in
+// input order; id and label, when non-nil, must have N values. A column without a name
+// is called "id" or "label". Rows go out in row groups of WriteChunkRows. w is not
+// closed. It returns an error if dims is not 2 or 3, len(y) is not a multiple of dims,
+// or a column length or name clashes.
+func WriteEmbedding(w io.Writer, id, label *Column, y []float64, dims int) error {
+	if dims != 2 && dims != 3 {
+		return fmt.Errorf("writing embedding: dims = %d, want 2 or 3", dims)
+	}
+	if len(y)%dims != 0 {
+		return fmt.Errorf("writing embedding: len(y) = %d is not a multiple of dims = %d", len(y), dims)
+	}
+	n := len(y) / dims
+	var fields []arrow.Field
+	if id != nil {
+		if id.Len() != n {
+			return fmt.Errorf("writing embedding: id has %d values for %d rows", id.Len(), n)
+		}
+		fields = append(fields, passField(id, "id", false))
+	}
+	if label != nil {
+		if label.Len() != n {
+			return fmt.Errorf("writing embedding: label has %d values for %d rows", label.Len(), n)
+		}
+		fields = append(fields, passField(label, "label", true))
+	}
+	dictCol := ""
+	if label != nil {
+		dictCol = fields[len(fields)-1].Name
+	}
+	first := len(fields)
+	for k := 1; k <= dims; k++ {
+		fields = append(fields, arrow.Field{Name: fmt.Sprintf("map_%d", k), Type: arrow.PrimitiveTypes.Float64})
+	}
+	sc := arrow.NewSchema(fields, nil)
+	return writeParquet(w, sc, dictCol, n, func(rb *array.RecordBuilder, lo, hi int) {
+		c := 0
+		if id != nil {
+			appendPass(rb.Field(c), id, lo, hi)
+			c++
+		}
+		if label != nil {
+			appendPass(rb.Field(c), label, lo, hi)
+		}
+		for k := 0; k < dims; k++ {
+			fb := rb.Field(first + k).(*array.Float64Builder)
+			fb.Reserve(hi - lo)
+			for i := lo; i < hi; i++ {
+				fb.UnsafeAppend(y[i*dims+k])
+			}
+		}
+	})
+}
+
+// WriteTable writes t as Parquet to w: t.ID (int64 or string) and t.Label (string)
+// when non-nil, then the D feature columns as float32 named t.Features. Rows go out in
+// row groups of WriteChunkRows. w is not closed. It returns an error if t.Features
+// does not have D names, t.Data does not have N×D values, or names clash.
+func WriteTable(w io.Writer, t *Table) error {
+	if len(t.Features) != t.D {
+		return fmt.Errorf("writing table: %d feature names for D = %d", len(t.Features), t.D)
+	}
+	if len(t.Data) != t.N*t.D {
+		return fmt.Errorf("writing table: %d values for N×D = %d×%d", len(t.Data), t.N, t.D)
+	}
+	var fields []arrow.Field
+	if t.ID != nil {
+		if t.ID.Len() != t.N {
+			return fmt.Errorf("writing table: id has %d values for %d rows", t.ID.Len(), t.N)
+		}
+		fields = append(fields, passField(t.ID, "id", false))
+	}
+	if t.Label != nil {
+		if t.Label.Len() != t.N {
+			return fmt.Errorf("writing table: label has %d values for %d rows", t.Label.Len(), t.N)
+		}
+		fields = append(fields, passField(t.Label, "label", true))
+	}
+	dictCol := ""
+	if t.Label != nil {
+		dictCol = fields[len(fields)-1].Name
+	}
+	first := len(fields)
+	for _, name := range t.Features {
+		fields = append(fields, arrow.Field{Name: name, Type: arrow.PrimitiveTypes.Float32})
+	}
+	sc := arrow.NewSchema(fields, nil)
+	return writeParquet(w, sc, dictCol, t.N, func(rb *array.RecordBuilder, lo, hi int) {
+		c := 0
+		if t.ID != nil {
+			appendPass(rb.Field(c), t.ID, lo, hi)
+			c++
+		}
+		if t.Label != nil {
+			appendPass(rb.Field(c), t.Label, lo, hi)
+		}
+		for j := 0; j < t.D; j++ {
+			fb := rb.Field(first + j).(*array.Float32Builder)
+			fb.Reserve(hi - lo)
+			for i := lo; i < hi; i++ {
+				fb.UnsafeAppend(t.Data[i*t.D+j])
+			}
+		}
+	})
+}
