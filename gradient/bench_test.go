@@ -1,0 +1,149 @@
+package gradient
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+// Benchmark inputs are synthetic: a random sparse P with k ≈ 90 neighbours
+// per row before symmetrisation (k = 3·perplexity 30, DESIGN.md), and a map of
+// 20 Gaussian clusters with centres in [−S, S]^d and sd s, S = 40·√(N/10^5),
+// s = 3·√(N/10^5): about the extent of a converged map (it grows like √N at
+// constant density; common practice, from memory). Run with -count 5 and take
+// medians.
+
+var benchCache = map[string]any{}
+
+func benchP(b *testing.B, n, k int) Affinities {
+	key := fmt.Sprintf("P%d/%d", n, k)
+	if v, ok := benchCache[key]; ok {
+		return v.(Affinities)
+	}
+	b.Helper()
+	rng := rand.New(rand.NewPCG(42, uint64(n)))
+	from := make([]int32, 0, n*k)
+	to := make([]int32, 0, n*k)
+	val := make([]float64, 0, n*k)
+	for i := 0; i < n; i++ {
+		for m := 0; m < k; m++ {
+			j := rng.IntN(n - 1)
+			if j >= i {
+				j++
+			}
+			from, to, val = append(from, int32(i)), append(to, int32(j)), append(val, 0.5+rng.Float64())
+		}
+	}
+	p := symmetricP(n, from, to, val)
+	benchCache[key] = p
+	return p
+}
+
+func benchY(n, dims int) []float64 {
+	key := fmt.Sprintf("Y%d/%d", n, dims)
+	if v, ok := benchCache[key]; ok {
+		return v.([]float64)
+	}
+	f := math.Sqrt(float64(n) / 1e5)
+	y := clusteredY(n, dims, 20, 40*f, 3*f, rand.New(rand.NewPCG(7, uint64(n))))
+	benchCache[key] = y
+	return y
+}
+
+// BenchmarkGradientTree is one full gradient (tree repulsion + attraction) at
+// N = 100,000, 2-D and 3-D, 1 and 2 threads.
+func BenchmarkGradientTree(b *testing.B) {
+	const n = 100000
+	p := benchP(b, n, 90)
+	for _, dims := range []int{2, 3} {
+		y := benchY(n, dims)
+		for _, threads := range []int{1, 2} {
+			b.Run(fmt.Sprintf("N=%d/%dD/threads=%d", n, dims, threads), func(b *testing.B) {
+				params := DefaultParams(n)
+				params.Dims, params.Method, params.Threads = dims, Tree, threads
+				e, err := newEngine(p, params)
+				if err != nil {
+					b.Fatal(err)
+				}
+				grad := make([]float64, n*dims)
+				e.gradient(y, 1, grad) // first build allocates
+				b.ReportAllocs()
+				b.ResetTimer()
+				for range b.N {
+					e.gradient(y, 1, grad)
+				}
+			})
+		}
+	}
+}
+
+// BenchmarkAttraction isolates the sparse attractive pass (same P as above).
+func BenchmarkAttraction(b *testing.B) {
+	const n = 100000
+	p := benchP(b, n, 90)
+	y := benchY(n, 2)
+	for _, threads := range []int{1, 2} {
+		b.Run(fmt.Sprintf("N=%d/threads=%d", n, threads), func(b *testing.B) {
+			params := DefaultParams(n)
+			params.Method, params.Threads = Tree, threads
+			e, _ := newEngine(p, params)
+			grad := make([]float64, n*2)
+			b.ResetTimer()
+			for range b.N {
+				e.attraction(y, 4, 0, grad)
+			}
+		})
+	}
+}
+
+// BenchmarkRepulsion compares repulsion methods on the map alone (no P),
+// 2-D, α = 1, from 5·10^3 to 10^6 points (the small sizes place
+// AutoGridMin).
+func BenchmarkRepulsion(b *testing.B) {
+	for _, n := range []int{5000, 20000, 100000, 1000000} {
+		y := benchY(n, 2)
+		methods := []Method{Tree, Grid}
+		for _, m := range methods {
+			for _, threads := range []int{1, 2} {
+				b.Run(fmt.Sprintf("N=%d/%v/threads=%d", n, m, threads), func(b *testing.B) {
+					params := DefaultParams(n)
+					params.Method, params.Threads = m, threads
+					e, err := newEngine(Affinities{N: n}, params)
+					if err != nil {
+						b.Fatal(err)
+					}
+					e.repulsion(y)
+					b.ResetTimer()
+					for range b.N {
+						e.repulsion(y)
+					}
+				})
+			}
+		}
+	}
+}
+
+// BenchmarkStep is one optimiser Step (tree) at N = 100,000, 2-D.
+func BenchmarkStep(b *testing.B) {
+	const n = 100000
+	p := benchP(b, n, 90)
+	y0 := benchY(n, 2)
+	for _, threads := range []int{1, 2} {
+		b.Run(fmt.Sprintf("N=%d/threads=%d", n, threads), func(b *testing.B) {
+			params := DefaultParams(n)
+			params.Method, params.Threads, params.Iterations = Tree, threads, 1<<30
+			params.EarlyIterations = 0
+			o, err := New(p, y0, params)
+			if err != nil {
+				b.Fatal(err)
+			}
+			b.ResetTimer()
+			for range b.N {
+				if err := o.Step(); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+	}
+}

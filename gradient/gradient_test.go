@@ -1,0 +1,676 @@
+package gradient
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"strings"
+	"testing"
+
+	"gonum.org/v1/gonum/stat"
+)
+
+// TestGradientFiniteDifference checks the analytic gradient against central
+// finite differences of the objective, evaluated by an independent double
+// loop. Source of the gradient: van der Maaten & Hinton 2008 (JMLR 9, eq. 5)
+// for α = 1; Kobak et al. 2019 (heavy-tailed kernels) for general α, where
+// ∂w/∂d² = −w^(1+1/α) gives ∂KL/∂y_i = 4 Σ_j (p_ij − q_ij) w_ij^(1/α)(y_i − y_j).
+//
+// With exaggeration ρ the optimiser's gradient 4 Σ_j (ρ p_ij − q_ij) w^(1/α)(y_i−y_j)
+// is the exact gradient of L_ρ(Y) = −ρ Σ p_ij ln w_ij + ln Z (+ constant
+// ρ Σ p ln p): the attractive sum carries ρ, ln Z does not. That L_ρ is what
+// is differenced here.
+func TestGradientFiniteDifference(t *testing.T) {
+	const n = 50
+	for _, dims := range []int{2, 3} {
+		for _, alpha := range []float64{1, 0.5, 3} {
+			for _, rho := range []float64{1, 12} {
+				for _, m := range []Method{Exact, Tree} { // Tree with θ = 0 is exact too
+					name := fmt.Sprintf("%dD/dof=%v/rho=%v/%v", dims, alpha, rho, m)
+					t.Run(name, func(t *testing.T) {
+						rng := rand.New(rand.NewPCG(uint64(dims), uint64(alpha*10+rho)))
+						p := randomP(n, 4, rng)
+						y := clusteredY(n, dims, 3, 3, 1, rng)
+						params := DefaultParams(n)
+						params.Dims, params.Dof, params.Method, params.Theta, params.Threads = dims, alpha, m, 0, 2
+						grad := make([]float64, n*dims)
+						if _, err := Gradient(p, y, params, rho, grad); err != nil {
+							t.Fatal(err)
+						}
+						pd := dense(p)
+						fd := make([]float64, n*dims)
+						const h = 1e-5
+						yy := append([]float64(nil), y...)
+						for k := range y {
+							yy[k] = y[k] + h
+							fp := directObjective(pd, n, yy, dims, alpha, rho)
+							yy[k] = y[k] - h
+							fm := directObjective(pd, n, yy, dims, alpha, rho)
+							yy[k] = y[k]
+							fd[k] = (fp - fm) / (2 * h)
+						}
+						if e := relErr(grad, fd); e > 1e-6 {
+							t.Errorf("‖grad − finite difference‖/‖fd‖ = %.3g, want ≤ 1e-6", e)
+						}
+					})
+				}
+			}
+		}
+	}
+}
+
+// TestKLExact compares KLExact, and the KL returned by Gradient, with a
+// direct Σ_{i≠j} p_ij ln(p_ij/q_ij) over an explicitly built dense Q
+// (definition of the t-SNE cost, van der Maaten & Hinton 2008, section 3.1).
+func TestKLExact(t *testing.T) {
+	for _, tc := range []struct {
+		dims  int
+		alpha float64
+	}{{2, 1}, {3, 1}, {2, 0.5}, {3, 3}} {
+		t.Run(fmt.Sprintf("%dD/dof=%v", tc.dims, tc.alpha), func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(7, uint64(tc.dims)))
+			const n = 120
+			p := randomP(n, 5, rng)
+			y := clusteredY(n, tc.dims, 4, 5, 1, rng)
+			pd := dense(p)
+			q := make([]float64, n*n)
+			var z float64
+			for i := 0; i < n; i++ {
+				for j := 0; j < n; j++ {
+					if i != j {
+						var d2 float64
+						for a := 0; a < tc.dims; a++ {
+							d := y[i*tc.dims+a] - y[j*tc.dims+a]
+							d2 += d * d
+						}
+						q[i*n+j] = math.Pow(1+d2/tc.alpha, -tc.alpha)
+						z += q[i*n+j]
+					}
+				}
+			}
+			var want float64
+			for k, pv := range pd {
+				if pv > 0 {
+					want += pv * math.Log(pv/(q[k]/z))
+				}
+			}
+			got := KLExact(p, y, tc.dims, tc.alpha)
+			if math.Abs(got-want) > 1e-10*math.Abs(want) {
+				t.Errorf("KLExact = %.15g, direct Σ p ln(p/q) = %.15g", got, want)
+			}
+			params := DefaultParams(n)
+			params.Dims, params.Dof, params.Method = tc.dims, tc.alpha, Exact
+			kl, err := Gradient(p, y, params, 1, make([]float64, n*tc.dims))
+			if err != nil {
+				t.Fatal(err)
+			}
+			if math.Abs(kl-want) > 1e-10*math.Abs(want) {
+				t.Errorf("Gradient's KL = %.15g, direct = %.15g", kl, want)
+			}
+		})
+	}
+}
+
+// TestBarnesHutAccuracy compares Barnes–Hut repulsive forces F_i = rep_i/Z
+// with the exact O(N²) forces on 5,000 clustered points: van der Maaten 2014
+// (JMLR 15) reports small gradient errors at θ = 0.5; we require
+// ‖F_bh − F_exact‖/‖F_exact‖ ≤ 1e-2 (the brief's bound). θ = 0 must match to
+// 1e-9 relative (it visits every pair; only the summation order differs).
+func TestBarnesHutAccuracy(t *testing.T) {
+	big := 5000
+	if testing.Short() {
+		big = 2000
+	}
+	for _, tc := range []struct {
+		dims  int
+		alpha float64
+		n     int
+	}{{2, 1, big}, {3, 1, big}, {2, 0.5, 2000}, {3, 3, 2000}, {2, 0.7, 1000}} {
+		n := tc.n
+		t.Run(fmt.Sprintf("%dD/dof=%v", tc.dims, tc.alpha), func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(11, uint64(tc.dims)))
+			y := clusteredY(n, tc.dims, 12, 30, 2.5, rng)
+			fe, ze := repulsiveForces(t, y, tc.dims, tc.alpha, 0, Exact, 2)
+			for _, theta := range []float64{0.5, 0} {
+				fb, zb := repulsiveForces(t, y, tc.dims, tc.alpha, theta, Tree, 2)
+				e := relErr(fb, fe)
+				ez := math.Abs(zb-ze) / ze
+				tol := 1e-2
+				if theta == 0 {
+					tol = 1e-9
+				}
+				t.Logf("θ=%v: force error %.3g, Z error %.3g", theta, e, ez)
+				if e > tol || ez > tol {
+					t.Errorf("θ=%v: force error %.3g, Z error %.3g, want ≤ %g", theta, e, ez, tol)
+				}
+			}
+		})
+	}
+}
+
+// TestGridAccuracy compares the FFT-interpolated repulsive forces and Z with
+// the exact O(N²) sums on 10,000 clustered 2-D points (Linderman et al. 2019,
+// Nature Methods, for the method). The error is governed by the node spacing
+// GridSide/GridNodes. Measured here (spread 30): default p = 3, side 1
+// (spacing 1/3): force error 1.1e-2; p = 4, side 0.6 (spacing 0.15): 3.2e-4.
+// A compact map that only fills the minimum 50 intervals (spread 5) is much
+// finer: 1e-3 at the defaults.
+//
+// The size stays 10,000 under -short: the bounds are for this data set.
+func TestGridAccuracy(t *testing.T) {
+	const n = 10000
+	for _, tc := range []struct {
+		spread     float64
+		nodes      int
+		side       float64
+		tolF, tolZ float64
+	}{
+		{30, 0, 0, 1.5e-2, 5e-4},
+		{30, 4, 0.6, 1e-3, 1e-5},
+		{5, 0, 0, 2e-3, 1e-5},
+	} {
+		t.Run(fmt.Sprintf("spread=%v/p=%d/side=%v", tc.spread, tc.nodes, tc.side), func(t *testing.T) {
+			y := clusteredY(n, 2, 12, tc.spread, 2.5, rand.New(rand.NewPCG(7, uint64(n))))
+			fe, ze := repulsiveForces(t, y, 2, 1, 0, Exact, 2)
+			params := Params{Dims: 2, Dof: 1, Method: Grid, Threads: 2, GridNodes: tc.nodes, GridSide: tc.side}
+			e, err := newEngine(Affinities{N: n}, params)
+			if err != nil {
+				t.Fatal(err)
+			}
+			z := e.repulsion(y)
+			f := make([]float64, len(y))
+			for k := range f {
+				f[k] = e.rep[k] / z
+			}
+			ef, ez := relErr(f, fe), math.Abs(z-ze)/ze
+			t.Logf("%d intervals × %d nodes: force error %.2e, Z error %.2e", e.grid.nInt, e.grid.p, ef, ez)
+			if ef > tc.tolF || ez > tc.tolZ {
+				t.Errorf("force error %.2e (want ≤ %g), Z error %.2e (want ≤ %g)", ef, tc.tolF, ez, tc.tolZ)
+			}
+		})
+	}
+}
+
+// TestGridCap lowers the node cap so that a wide map gets intervals wider
+// than GridSide: the result must stay close to the exact sums, only coarser
+// (reference: exact O(N²) repulsion).
+func TestGridCap(t *testing.T) {
+	defer func(old int) { gridMaxNodes = old }(gridMaxNodes)
+	gridMaxNodes = 96
+	const n = 2000
+	y := clusteredY(n, 2, 8, 30, 2.5, rand.New(rand.NewPCG(3, 3)))
+	fe, ze := repulsiveForces(t, y, 2, 1, 0, Exact, 2)
+	e, err := newEngine(Affinities{N: n}, Params{Dims: 2, Dof: 1, Method: Grid, Threads: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	z := e.repulsion(y)
+	if e.grid.m > 100 || e.grid.h <= DefaultGridSide {
+		t.Fatalf("cap not reached: M = %d, interval side %v", e.grid.m, e.grid.h)
+	}
+	f := make([]float64, len(y))
+	for k := range f {
+		f[k] = e.rep[k] / z
+	}
+	ef, ez := relErr(f, fe), math.Abs(z-ze)/ze
+	t.Logf("M = %d, side %.2f: force error %.2e, Z error %.2e", e.grid.m, e.grid.h, ef, ez)
+	if ef > 0.2 || ez > 1e-2 { // measured 0.12 and 3.8e-3: coarse but sane
+		t.Errorf("force error %.2e, Z error %.2e", ef, ez)
+	}
+}
+
+// TestDuplicatesDoNotHang puts many points on exactly the same spot (more
+// than a leaf holds). The tree must terminate and, at θ = 0, agree with the
+// exact sums (reference: exact O(N²) repulsion). When all points coincide
+// every w = 1, so Z = N(N−1) and all forces vanish (hand-worked).
+func TestDuplicatesDoNotHang(t *testing.T) {
+	for _, dims := range []int{2, 3} {
+		t.Run(fmt.Sprintf("%dD", dims), func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(5, uint64(dims)))
+			const n = 400
+			y := clusteredY(n, dims, 3, 5, 1, rng)
+			for i := 0; i < 150; i++ { // 150 copies of point 0
+				copy(y[i*dims:(i+1)*dims], y[:dims])
+			}
+			for i := 200; i < 260; i++ { // 60 copies of point 200
+				copy(y[i*dims:(i+1)*dims], y[200*dims:201*dims])
+			}
+			fe, ze := repulsiveForces(t, y, dims, 1, 0, Exact, 1)
+			for _, theta := range []float64{0, 0.5} {
+				fb, zb := repulsiveForces(t, y, dims, 1, theta, Tree, 3)
+				tol := 1e-9
+				if theta > 0 {
+					tol = 1e-2
+				}
+				if e := relErr(fb, fe); e > tol || math.Abs(zb-ze)/ze > tol {
+					t.Errorf("θ=%v: force error %.3g, Z %v vs exact %v", theta, e, zb, ze)
+				}
+			}
+			if dims == 2 {
+				fg, zg := repulsiveForces(t, y, dims, 1, 0, Grid, 3)
+				if e := relErr(fg, fe); e > 2e-2 || math.Abs(zg-ze)/ze > 1e-3 {
+					t.Errorf("grid: force error %.3g, Z %v vs exact %v", e, zg, ze)
+				}
+			}
+			same := make([]float64, n*dims)
+			for k := range same {
+				same[k] = 1.5
+			}
+			f, z := repulsiveForces(t, same, dims, 1, 0.5, Tree, 2)
+			if z != float64(n*(n-1)) {
+				t.Errorf("all coincident: Z = %v, want N(N−1) = %d", z, n*(n-1))
+			}
+			for k, v := range f {
+				if v != 0 {
+					t.Fatalf("all coincident: force[%d] = %v, want 0", k, v)
+				}
+			}
+			if dims == 2 { // interpolation is not exact: within 1e-9 of the hand-worked values
+				f, z := repulsiveForces(t, same, dims, 1, 0, Grid, 2)
+				if math.Abs(z-float64(n*(n-1))) > 1e-9*float64(n*n) {
+					t.Errorf("grid, all coincident: Z = %v, want %d", z, n*(n-1))
+				}
+				for k, v := range f {
+					if math.Abs(v) > 1e-9 {
+						t.Fatalf("grid, all coincident: force[%d] = %v, want 0", k, v)
+					}
+				}
+			}
+		})
+	}
+}
+
+// TestMortonSpread checks the bit-interleaving tricks against a bit-by-bit
+// loop (definition of the Z-order curve).
+func TestMortonSpread(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 2))
+	for trial := 0; trial < 1000; trial++ {
+		x := rng.Uint64()
+		var w2, w3 uint64
+		for b := 0; b < 32; b++ {
+			w2 |= (x >> b & 1) << (2 * b)
+		}
+		for b := 0; b < 21; b++ {
+			w3 |= (x >> b & 1) << (3 * b)
+		}
+		if got := spread2(x); got != w2 {
+			t.Fatalf("spread2(%#x) = %#x, want %#x", x, got, w2)
+		}
+		if got := spread3(x); got != w3 {
+			t.Fatalf("spread3(%#x) = %#x, want %#x", x, got, w3)
+		}
+	}
+}
+
+// TestThreadsSameBits runs 20 optimiser steps with 1, 2 and 3 threads and
+// requires identical bits (DESIGN.md determinism promise; common practice).
+func TestThreadsSameBits(t *testing.T) {
+	for _, tc := range []struct {
+		m    Method
+		n    int
+		dims int
+	}{{Tree, 2600, 2}, {Tree, 1500, 3}, {Exact, 700, 2}, {Grid, 2600, 2}} {
+		t.Run(fmt.Sprintf("%v/%dD", tc.m, tc.dims), func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(3, uint64(tc.n)))
+			p := randomP(tc.n, 8, rng)
+			y0 := clusteredY(tc.n, tc.dims, 5, 1, 1, rng)
+			InitScale(y0, tc.dims, 1e-2)
+			var ref State
+			for _, threads := range []int{1, 2, 3} {
+				params := DefaultParams(tc.n)
+				params.Dims, params.Method, params.Threads = tc.dims, tc.m, threads
+				params.EarlyIterations, params.Iterations = 10, 20
+				o, err := New(p, y0, params)
+				if err != nil {
+					t.Fatal(err)
+				}
+				for !o.Done() {
+					if err := o.Step(); err != nil {
+						t.Fatal(err)
+					}
+				}
+				s := o.State()
+				if threads == 1 {
+					ref = s
+					continue
+				}
+				for _, c := range []struct {
+					name string
+					a, b []float64
+				}{{"Y", s.Y, ref.Y}, {"Update", s.Update, ref.Update}, {"Gains", s.Gains, ref.Gains}} {
+					if k := sameBits(c.a, c.b); k >= 0 {
+						t.Errorf("threads=%d: %s differs from 1 thread at %d", threads, c.name, k)
+					}
+				}
+				if math.Float64bits(s.KL) != math.Float64bits(ref.KL) {
+					t.Errorf("threads=%d: KL %v vs %v", threads, s.KL, ref.KL)
+				}
+			}
+		})
+	}
+}
+
+// TestRestoreSameBits stops a run mid-way (inside the early phase, and after
+// it), restores the state into a fresh optimiser and requires the same bits
+// as an uninterrupted run (DESIGN.md resume promise; common practice).
+func TestRestoreSameBits(t *testing.T) {
+	const n = 600
+	rng := rand.New(rand.NewPCG(9, 9))
+	p := randomP(n, 6, rng)
+	y0 := clusteredY(n, 2, 4, 1, 1, rng)
+	InitScale(y0, 2, 1e-4)
+	for _, m := range []Method{Tree, Grid, Exact} {
+		t.Run(m.String(), func(t *testing.T) { restoreSameBits(t, p, y0, m) })
+	}
+}
+
+func restoreSameBits(t *testing.T, p Affinities, y0 []float64, m Method) {
+	params := DefaultParams(p.N)
+	params.Method, params.EarlyIterations, params.Iterations, params.Threads = m, 15, 40, 2
+	params.GridIntervals = 20
+	run := func(stopAt int) []float64 {
+		o, err := New(p, y0, params)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for o.Iteration() < stopAt {
+			if err := o.Step(); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if stopAt > 0 {
+			s := o.State()
+			o2, err := New(p, y0, params)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := o2.Restore(s); err != nil {
+				t.Fatal(err)
+			}
+			if o2.KL() != s.KL {
+				t.Errorf("restored KL %v, state KL %v", o2.KL(), s.KL)
+			}
+			o = o2
+		}
+		for !o.Done() {
+			if err := o.Step(); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if err := o.Step(); err != ErrDone {
+			t.Errorf("Step after the end: %v, want ErrDone", err)
+		}
+		return append([]float64(nil), o.Y()...)
+	}
+	want := run(0)
+	for _, stop := range []int{7, 15, 31} {
+		if k := sameBits(run(stop), want); k >= 0 {
+			t.Errorf("restored at %d: Y differs at %d", stop, k)
+		}
+	}
+}
+
+// clusterGraph is a hand-made graph: c clusters of m rows, each row joined to
+// its 3 successors around a ring inside its cluster, plus 2 chords.
+func clusterGraph(c, m int) (Affinities, []int) {
+	var from, to []int32
+	var val []float64
+	label := make([]int, c*m)
+	for k := 0; k < c; k++ {
+		for a := 0; a < m; a++ {
+			i := k*m + a
+			label[i] = k
+			for _, s := range []int{1, 2, 3, m / 3, m / 2} {
+				from = append(from, int32(i))
+				to = append(to, int32(k*m+(a+s)%m))
+				val = append(val, 1)
+			}
+		}
+	}
+	return symmetricP(c*m, from, to, val), label
+}
+
+// TestKLFalls runs the optimiser on a hand-made clustered P and checks that
+// KL falls (the purpose of gradient descent; van der Maaten & Hinton 2008),
+// that the lagged KL() equals KLExact at Y − Update, and that every point's
+// nearest map neighbour lies in its own cluster.
+func TestKLFalls(t *testing.T) {
+	for _, tc := range []struct {
+		dims int
+		m    Method
+	}{{2, Auto}, {3, Auto}, {2, Tree}, {3, Tree}, {2, Grid}} {
+		dims := tc.dims
+		t.Run(fmt.Sprintf("%dD/%v", dims, tc.m), func(t *testing.T) {
+			p, label := clusterGraph(4, 30)
+			n := p.N
+			rng := rand.New(rand.NewPCG(2, uint64(dims)))
+			y0 := make([]float64, n*dims)
+			for k := range y0 {
+				y0[k] = rng.NormFloat64()
+			}
+			InitScale(y0, dims, 1e-4)
+			params := DefaultParams(n)
+			params.Dims, params.EarlyIterations, params.Iterations, params.Method = dims, 100, 300, tc.m
+			params.GridIntervals = 10 // a small map: keep the FFT small
+			o, err := New(p, y0, params)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if tc.m == Auto && o.Method() != Exact {
+				t.Errorf("auto method for N=%d: %v, want exact", n, o.Method())
+			}
+			if !math.IsNaN(o.KL()) {
+				t.Errorf("KL before the first step = %v, want NaN", o.KL())
+			}
+			var first float64
+			for !o.Done() {
+				if err := o.Step(); err != nil {
+					t.Fatal(err)
+				}
+				if o.Iteration() == 1 {
+					first = o.KL()
+				}
+			}
+			last := o.KL()
+			prev := make([]float64, n*dims)
+			s := o.State()
+			for k := range prev {
+				prev[k] = s.Y[k] - s.Update[k]
+			}
+			tol := 1e-9 // same Z as the reference: rounding only
+			if o.Method() != Exact {
+				tol = 1e-2 * last // approximate Z (see the accuracy tests)
+			}
+			if ref := KLExact(p, prev, dims, 1); math.Abs(ref-last) > tol {
+				t.Errorf("KL() = %.12g, KLExact at Y−Update = %.12g", last, ref)
+			}
+			t.Logf("KL %.4f → %.4f", first, last)
+			if !(last < 0.5*first) {
+				t.Errorf("KL fell only from %.4f to %.4f", first, last)
+			}
+			y := o.Y()
+			for i := 0; i < n; i++ {
+				best, bd := -1, math.Inf(1)
+				for j := 0; j < n; j++ {
+					if j == i {
+						continue
+					}
+					var d2 float64
+					for a := 0; a < dims; a++ {
+						d := y[i*dims+a] - y[j*dims+a]
+						d2 += d * d
+					}
+					if d2 < bd {
+						best, bd = j, d2
+					}
+				}
+				if label[best] != label[i] {
+					t.Errorf("point %d (cluster %d): nearest map neighbour %d is in cluster %d", i, label[i], best, label[best])
+				}
+			}
+		})
+	}
+}
+
+// TestParseMethod is table-driven over the accepted names.
+func TestParseMethod(t *testing.T) {
+	for _, tc := range []struct {
+		in   string
+		want Method
+		ok   bool
+	}{
+		{"auto", Auto, true}, {"exact", Exact, true}, {"Tree", Tree, true},
+		{" tree ", Tree, true}, {"grid", Grid, true}, {"fft", Auto, false}, {"", Auto, false},
+	} {
+		m, err := ParseMethod(tc.in)
+		if (err == nil) != tc.ok || (tc.ok && m != tc.want) {
+			t.Errorf("ParseMethod(%q) = %v, %v; want %v, ok=%v", tc.in, m, err, tc.want, tc.ok)
+		}
+		if tc.ok && m.String() != strings.ToLower(strings.TrimSpace(tc.in)) {
+			t.Errorf("%v.String() = %q", m, m.String())
+		}
+	}
+}
+
+// TestValidate checks that each bad parameter is reported by name.
+func TestValidate(t *testing.T) {
+	for _, tc := range []struct {
+		name string
+		n    int
+		mod  func(*Params)
+	}{
+		{"Dims", 100, func(p *Params) { p.Dims = 4 }},
+		{"Dof", 100, func(p *Params) { p.Dof = 0 }},
+		{"Dof", 100, func(p *Params) { p.Dof = math.NaN() }},
+		{"Theta", 100, func(p *Params) { p.Theta = -0.1 }},
+		{"Exaggeration", 100, func(p *Params) { p.Exaggeration = 0 }},
+		{"Iterations", 100, func(p *Params) { p.Iterations = 0 }},
+		{"EarlyIterations", 100, func(p *Params) { p.EarlyIterations = 2000 }},
+		{"LearningRate", 100, func(p *Params) { p.LearningRate = -1 }},
+		{"LearningRate", 100, func(p *Params) { p.LearningRate = math.Inf(1) }},
+		{"MomentumEarly", 100, func(p *Params) { p.MomentumEarly = 1 }},
+		{"MomentumLate", 100, func(p *Params) { p.MomentumLate = -0.1 }},
+		{"MinGain", 100, func(p *Params) { p.MinGain = 0 }},
+		{"Threads", 100, func(p *Params) { p.Threads = 0 }},
+		{"Method", ExactLimit + 1, func(p *Params) { p.Method = Exact }},
+		{"Method", 100, func(p *Params) { p.Method = Method(9) }},
+		{"Method", 100, func(p *Params) { p.Method, p.Dims = Grid, 3 }},
+	} {
+		p := DefaultParams(tc.n)
+		tc.mod(&p)
+		err := p.Validate(tc.n)
+		if err == nil || !strings.Contains(err.Error(), tc.name) {
+			t.Errorf("%s: Validate = %v, want an error naming %s", tc.name, err, tc.name)
+		}
+	}
+	if err := DefaultParams(5).Validate(5); err != nil {
+		t.Errorf("defaults rejected: %v", err)
+	}
+}
+
+// TestAffinitiesValidate checks that malformed CSR input is refused.
+func TestAffinitiesValidate(t *testing.T) {
+	good := func() Affinities {
+		return Affinities{N: 3, Offsets: []int64{0, 1, 3, 4}, Cols: []int32{1, 0, 2, 1}, Vals: []float32{0.25, 0.25, 0.25, 0.25}}
+	}
+	if err := good().Validate(); err != nil {
+		t.Fatalf("good P refused: %v", err)
+	}
+	for _, tc := range []struct {
+		name string
+		mod  func(*Affinities)
+	}{
+		{"offsets length", func(a *Affinities) { a.Offsets = a.Offsets[:3] }},
+		{"column range", func(a *Affinities) { a.Cols[0] = 3 }},
+		{"diagonal", func(a *Affinities) { a.Cols[0] = 0 }},
+		{"order", func(a *Affinities) { a.Cols[1], a.Cols[2] = 2, 0 }},
+		{"negative", func(a *Affinities) { a.Vals[0], a.Vals[1] = -0.25, 0.75 }},
+		{"sum", func(a *Affinities) { a.Vals[0] = 0.5 }},
+		{"one row", func(a *Affinities) { *a = Affinities{N: 1, Offsets: []int64{0, 0}} }},
+	} {
+		a := good()
+		tc.mod(&a)
+		if err := a.Validate(); err == nil {
+			t.Errorf("%s: accepted", tc.name)
+		}
+	}
+}
+
+// TestAutoRules checks the learning-rate rule, max(N/ρ, 200) in units of a
+// gradient without the 4 (Belkina et al. 2019; Kobak & Berens 2019;
+// DESIGN.md floor), worked by hand, and the method choice.
+func TestAutoRules(t *testing.T) {
+	for _, tc := range []struct {
+		n    int
+		rho  float64
+		want float64
+	}{{1000, 12, 200}, {2400, 12, 200}, {120000, 12, 10000}, {1000000, 4, 250000}} {
+		if got := AutoLearningRate(tc.n, tc.rho); got != tc.want {
+			t.Errorf("AutoLearningRate(%d, %v) = %v, want %v", tc.n, tc.rho, got, tc.want)
+		}
+	}
+	for _, tc := range []struct {
+		n    int
+		dims int
+		want Method
+	}{{500, 2, Exact}, {AutoExactLimit + 1, 3, Tree}, {AutoGridMin - 1, 2, Tree}, {AutoGridMin, 2, Grid}, {AutoGridMin, 3, Tree}} {
+		p := DefaultParams(tc.n)
+		p.Dims = tc.dims
+		if got := p.Resolve(tc.n); got != tc.want {
+			t.Errorf("Resolve(%d) %dD = %v, want %v", tc.n, tc.dims, got, tc.want)
+		}
+	}
+}
+
+// TestInitScale compares with gonum's stat.StdDev (N−1 divisor).
+func TestInitScale(t *testing.T) {
+	for _, dims := range []int{2, 3} {
+		rng := rand.New(rand.NewPCG(4, uint64(dims)))
+		y := clusteredY(200, dims, 3, 10, 2, rng)
+		orig := append([]float64(nil), y...)
+		InitScale(y, dims, 1e-4)
+		col := func(v []float64, c int) []float64 {
+			out := make([]float64, 0, len(v)/dims)
+			for i := c; i < len(v); i += dims {
+				out = append(out, v[i])
+			}
+			return out
+		}
+		if sd := stat.StdDev(col(y, 0), nil); math.Abs(sd-1e-4) > 1e-16 {
+			t.Errorf("%dD: column 1 sd = %v, want 1e-4", dims, sd)
+		}
+		ratio := stat.StdDev(col(orig, 1), nil) / stat.StdDev(col(orig, 0), nil)
+		if r := stat.StdDev(col(y, 1), nil) / 1e-4; math.Abs(r-ratio) > 1e-9*ratio {
+			t.Errorf("%dD: column ratio changed from %v to %v", dims, ratio, r)
+		}
+	}
+}
+
+// TestNewRejects checks input validation of New and Restore.
+func TestNewRejects(t *testing.T) {
+	p, _ := clusterGraph(2, 10)
+	params := DefaultParams(p.N)
+	y0 := make([]float64, p.N*2)
+	if _, err := New(p, y0[:5], params); err == nil {
+		t.Error("short y0 accepted")
+	}
+	y0[3] = math.NaN()
+	if _, err := New(p, y0, params); err == nil {
+		t.Error("NaN in y0 accepted")
+	}
+	y0[3] = 0
+	o, err := New(p, y0, params)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := o.State()
+	s.Gains[0] = 0
+	if err := o.Restore(s); err == nil {
+		t.Error("zero gain accepted")
+	}
+	s = o.State()
+	s.Iteration = params.Iterations + 1
+	if err := o.Restore(s); err == nil {
+		t.Error("iteration beyond the end accepted")
+	}
+}
