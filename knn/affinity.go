@@ -1,0 +1,338 @@
+package knn
+
+import (
+	"cmp"
+	"fmt"
+	"math"
+	"runtime"
+	"slices"
+	"sync"
+	"sync/atomic"
+)
+
+// Neighbours returns the number of neighbours to compute for a perplexity on
+// n rows: k = min(n−1, ⌊3·perplexity⌋) (van der Maaten 2014, JMLR 15, §4.1),
+// and at least 1 when n ≥ 2. It returns 0 for n < 2.
+func Neighbours(perplexity float64, n int) int {
+	if n < 2 {
+		return 0
+	}
+	k := n - 1
+	if f := math.Floor(3 * perplexity); f < float64(k) {
+		k = int(f)
+	}
+	return max(k, 1)
+}
+
+// PerplexityError reports a perplexity too large for the number of rows. The
+// rule is 3·perplexity ≤ N−1 (each row needs ⌊3·perplexity⌋ neighbours, van der
+// Maaten 2014), so the largest perplexity that works is Max = (N−1)/3.
+type PerplexityError struct {
+	Rows       int
+	Perplexity float64
+	Max        float64
+}
+
+// Error says which perplexity would work, rounded down to two decimals so
+// that the value shown is itself accepted.
+func (e *PerplexityError) Error() string {
+	return fmt.Sprintf("perplexity %g is too large for %d rows (it needs 3·perplexity ≤ rows−1): use a perplexity of at most %.2f",
+		e.Perplexity, e.Rows, math.Floor(e.Max*100)/100)
+}
+
+// CheckPerplexity returns nil if perplexity can be used on n rows: it must be
+// finite and at least 1 (the entropy ln(perplexity) of a distribution is ≥ 0),
+// else a plain error; and 3·perplexity ≤ n−1, else a *PerplexityError.
+func CheckPerplexity(perplexity float64, n int) error {
+	if math.IsNaN(perplexity) || math.IsInf(perplexity, 0) || perplexity < 1 {
+		return fmt.Errorf("perplexity %g must be a number ≥ 1", perplexity)
+	}
+	if 3*perplexity > float64(n-1) {
+		return &PerplexityError{Rows: n, Perplexity: perplexity, Max: float64(n-1) / 3}
+	}
+	return nil
+}
+
+// Calibration constants (van der Maaten & Hinton 2008, JMLR 9, §2: σ_i found by
+// binary search to match the perplexity; the tolerance and step cap are
+// common practice).
+const (
+	// EntropyTolerance is the largest accepted |H_i − ln(perplexity)|.
+	EntropyTolerance = 1e-5
+	// MaxCalibrationSteps caps the bisection on β.
+	MaxCalibrationSteps = 200
+)
+
+// Calibrate finds, for one row with squared neighbour distances d2 (k = len(d2)
+// values), the precision β = 1/(2σ²) at which the conditional probabilities
+//
+//	p_j = exp(−β·d2_j) / Σ_l exp(−β·d2_l)
+//
+// have entropy H = −Σ p_j ln p_j equal to ln(perplexity) within
+// EntropyTolerance, by bisection on β (at most MaxCalibrationSteps steps; van
+// der Maaten & Hinton 2008, JMLR 9). It writes p into dst and returns β, the
+// entropy H reached (natural log) and the number of steps taken. All arithmetic
+// is float64; the row's smallest d2 is subtracted before exponentiating (it
+// cancels in p) so that nothing underflows to a zero sum.
+//
+// If all d2 are equal (e.g. a row whose neighbours are all exact duplicates)
+// p is uniform whatever β: Calibrate returns β = 0, H = ln k, 0 steps. If the
+// target is out of reach (perplexity > k, or < the number of neighbours tied
+// at the smallest distance) it returns the closest it got after the step cap.
+//
+// Preconditions: len(dst) == len(d2) ≥ 1, d2 values finite, perplexity > 0.
+// It panics if the lengths differ.
+func Calibrate(dst []float64, d2 []float32, perplexity float64) (beta, entropy float64, iters int) {
+	if len(dst) != len(d2) {
+		panic(fmt.Sprintf("knn: Calibrate: len(dst) = %d, len(d2) = %d", len(dst), len(d2)))
+	}
+	k := len(d2)
+	dmin, dmax := d2[0], d2[0]
+	for _, v := range d2 {
+		dmin = min(dmin, v)
+		dmax = max(dmax, v)
+	}
+	if dmin == dmax {
+		for j := range dst {
+			dst[j] = 1 / float64(k)
+		}
+		return 0, math.Log(float64(k)), 0
+	}
+	var mean float64
+	for _, v := range d2 {
+		mean += float64(v) - float64(dmin)
+	}
+	mean /= float64(k)
+	target := math.Log(perplexity)
+	// eval sets dst to p(β) and returns H(β) = ln Z + β·Σ p_j s_j, s = d2 − min.
+	eval := func(b float64) float64 {
+		var z, ws float64
+		for j, v := range d2 {
+			s := float64(v) - float64(dmin)
+			w := math.Exp(-b * s)
+			dst[j] = w
+			z += w
+			ws += w * s
+		}
+		for j := range dst {
+			dst[j] /= z
+		}
+		return math.Log(z) + b*ws/z
+	}
+	lo, hi := 0.0, math.Inf(1)
+	beta = 1 / mean // scale-free start: β·s is O(1) for typical s
+	for iters = 1; ; iters++ {
+		entropy = eval(beta)
+		diff := entropy - target
+		if math.Abs(diff) < EntropyTolerance || iters == MaxCalibrationSteps {
+			return beta, entropy, iters
+		}
+		if diff > 0 { // too flat: sharpen
+			lo = beta
+			if math.IsInf(hi, 1) {
+				beta *= 2
+			} else {
+				beta = (lo + hi) / 2
+			}
+		} else {
+			hi = beta
+			beta = (lo + hi) / 2
+		}
+	}
+}
+
+// affinityBlock is the number of rows per unit of parallel work in Affinity.
+const affinityBlock = 1024
+
+// Affinity turns a neighbour graph into the t-SNE input affinities
+//
+//	p_ij = (p_{j|i} + p_{i|j}) / 2N
+//
+// (van der Maaten & Hinton 2008, JMLR 9, §3), where p_{j|i} is Calibrate's
+// conditional probability over row i's K neighbours for the given perplexity
+// and p_{j|i} = 0 for j not among them. The result is an N×N CSR with columns
+// ascending in each row, exactly symmetric (P_ij and P_ji are computed by the
+// same float64 expression), non-negative, with between N·K and 2·N·K entries.
+// Σ P = 1 in float64 before storage; the stored float32 values sum to 1
+// within 2⁻²³ (two roundings of relative size ≤ 2⁻²⁴).
+// Probabilities are computed in float64 and stored as float32. The result is
+// bit-identical for any threads (≤ 0 means runtime.GOMAXPROCS(0)).
+//
+// Preconditions: g.N ≥ 2, 1 ≤ g.K ≤ N−1, every row's neighbours distinct, in
+// [0, N) and not the row itself, distances finite and ≥ 0; the perplexity passes
+// CheckPerplexity(perplexity, g.N) (a *PerplexityError when 3·perplexity > N−1)
+// and is ≤ g.K. Otherwise an error is returned.
+//
+// Memory beyond the result: 8·N·K bytes of row-sorted neighbour lists with
+// their conditional probabilities, and 4·N bytes of counters. At N = 10⁶,
+// K = 90 that is 720 MB, and P itself 8 bytes per entry, at most 1.44 GB.
+func Affinity(g *Graph, perplexity float64, threads int) (*CSR, error) {
+	if g == nil || g.N < 2 || g.K < 1 || g.K >= g.N || len(g.Index) != g.N*g.K || len(g.Dist2) != g.N*g.K {
+		return nil, fmt.Errorf("affinities: malformed neighbour graph")
+	}
+	if err := CheckPerplexity(perplexity, g.N); err != nil {
+		return nil, err
+	}
+	if perplexity > float64(g.K) {
+		return nil, fmt.Errorf("affinities: perplexity %g exceeds the %d neighbours per row of the graph", perplexity, g.K)
+	}
+	if threads <= 0 {
+		threads = runtime.GOMAXPROCS(0)
+	}
+	n, k := g.N, g.K
+
+	// 1. Conditional probabilities, each row sorted by column.
+	cols := make([]int32, n*k)
+	vals := make([]float32, n*k)
+	var errs blockErrors
+	forEachBlock(n, affinityBlock, threads, func(lo, hi int) {
+		p := make([]float64, k)
+		pairs := make([]colVal, k)
+		for i := lo; i < hi; i++ {
+			d2 := g.Dist2[i*k : (i+1)*k]
+			for j, v := range d2 {
+				if !(v >= 0) || math.IsInf(float64(v), 1) {
+					errs.set(lo, fmt.Errorf("affinities: row %d: neighbour %d has squared distance %g", i, j, v))
+					return
+				}
+			}
+			Calibrate(p, d2, perplexity)
+			for j, c := range g.Index[i*k : (i+1)*k] {
+				pairs[j] = colVal{c, float32(p[j])}
+			}
+			slices.SortFunc(pairs, func(a, b colVal) int { return cmp.Compare(a.c, b.c) })
+			for j, pr := range pairs {
+				if pr.c < 0 || int(pr.c) >= n || int(pr.c) == i || (j > 0 && pairs[j-1].c == pr.c) {
+					errs.set(lo, fmt.Errorf("affinities: row %d: neighbour list has an invalid or repeated row %d", i, pr.c))
+					return
+				}
+				cols[i*k+j] = pr.c
+				vals[i*k+j] = pr.v
+			}
+		}
+	})
+	if err := errs.first(); err != nil {
+		return nil, err
+	}
+	has := func(i int, j int32) (int, bool) { // position of j in row i
+		return slices.BinarySearch(cols[i*k:(i+1)*k], j)
+	}
+
+	// 2. Count the one-way edges i→j (i ∉ kNN(j)): they add an entry to row j.
+	extra := make([]int32, n)
+	forEachBlock(n, affinityBlock, threads, func(lo, hi int) {
+		for i := lo; i < hi; i++ {
+			for _, j := range cols[i*k : (i+1)*k] {
+				if _, ok := has(int(j), int32(i)); !ok {
+					atomic.AddInt32(&extra[j], 1)
+				}
+			}
+		}
+	})
+	P := &CSR{N: n, Offsets: make([]int64, n+1)}
+	for i := 0; i < n; i++ {
+		P.Offsets[i+1] = P.Offsets[i] + int64(k) + int64(extra[i])
+	}
+	P.Cols = make([]int32, P.Offsets[n])
+	P.Vals = make([]float32, P.Offsets[n])
+
+	// 3. Drop each one-way edge i→j, with p_{j|i}, into the tail of row j.
+	clear(extra)
+	forEachBlock(n, affinityBlock, threads, func(lo, hi int) {
+		for i := lo; i < hi; i++ {
+			for t, j := range cols[i*k : (i+1)*k] {
+				if _, ok := has(int(j), int32(i)); !ok {
+					pos := P.Offsets[j] + int64(k) + int64(atomic.AddInt32(&extra[j], 1)-1)
+					P.Cols[pos] = int32(i)
+					P.Vals[pos] = vals[i*k+t]
+				}
+			}
+		}
+	})
+
+	// 4. Per row: sort the tail (its order depended on scheduling), then merge
+	// it with the row's own list into ascending columns, symmetrising.
+	scale := 1 / (2 * float64(n))
+	forEachBlock(n, affinityBlock, threads, func(lo, hi int) {
+		var tail []colVal
+		for i := lo; i < hi; i++ {
+			off, end := P.Offsets[i], P.Offsets[i+1]
+			tail = tail[:0]
+			for pos := off + int64(k); pos < end; pos++ {
+				tail = append(tail, colVal{P.Cols[pos], P.Vals[pos]})
+			}
+			slices.SortFunc(tail, func(a, b colVal) int { return cmp.Compare(a.c, b.c) })
+			own := cols[i*k : (i+1)*k]
+			ownV := vals[i*k : (i+1)*k]
+			pos, a, b := off, 0, 0
+			for a < k || b < len(tail) {
+				if b == len(tail) || (a < k && own[a] < tail[b].c) {
+					j := own[a]
+					var back float64 // p_{i|j}
+					if t, ok := has(int(j), int32(i)); ok {
+						back = float64(vals[int(j)*k+t])
+					}
+					P.Cols[pos] = j
+					P.Vals[pos] = float32((float64(ownV[a]) + back) * scale)
+					a++
+				} else {
+					P.Cols[pos] = tail[b].c
+					P.Vals[pos] = float32((0 + float64(tail[b].v)) * scale)
+					b++
+				}
+				pos++
+			}
+		}
+	})
+	return P, nil
+}
+
+// colVal is one sparse entry while building P.
+type colVal struct {
+	c int32
+	v float32
+}
+
+// forEachBlock calls fn(lo, hi) for the blocks [lo, hi) of size block covering
+// [0, n), from up to threads goroutines; blocks are taken in order.
+func forEachBlock(n, block, threads int, fn func(lo, hi int)) {
+	nb := (n + block - 1) / block
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for w := 0; w < min(threads, nb); w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for {
+				b := int(next.Add(1)) - 1
+				if b >= nb {
+					return
+				}
+				fn(b*block, min((b+1)*block, n))
+			}
+		}()
+	}
+	wg.Wait()
+}
+
+// blockErrors keeps the error of the lowest-numbered block that failed, so the
+// error reported does not depend on scheduling.
+type blockErrors struct {
+	mu  sync.Mutex
+	at  int
+	err error
+}
+
+func (e *blockErrors) set(lo int, err error) {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	if e.err == nil || lo < e.at {
+		e.at, e.err = lo, err
+	}
+}
+
+func (e *blockErrors) first() error {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	return e.err
+}
