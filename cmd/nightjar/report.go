@@ -1,0 +1,92 @@
+package main
+
+import (
+	"encoding/json"
+	"fmt"
+	"io"
+	"runtime"
+	"syscall"
+
+	"nightjar/checkpoint"
+)
+
+// caution is printed after every run and written into every report.
+const caution = "A t-SNE map keeps local neighbourhoods, not global geometry: the sizes of clusters " +
+	"and the distances between clusters carry little meaning, and apparent gaps or sub-groups can be artefacts " +
+	"of perplexity and run length. Confirm any finding with the original data."
+
+// report is report.json: what was run, how long it took, how good the map is.
+type report struct {
+	Tool       string   `json:"tool"`
+	Version    string   `json:"version"`
+	Input      string   `json:"input"`
+	Format     string   `json:"format"`
+	Rows       int      `json:"rows"`
+	Features   int      `json:"features"`
+	Skipped    int64    `json:"skipped_rows"`
+	Reduced    *reduced `json:"reduced,omitempty"`
+	Parameters settings `json:"parameters"`
+	Threads    int      `json:"threads"`
+	Cores      int      `json:"cores"`
+	GoVersion  string   `json:"go_version"`
+	Resumed    bool     `json:"resumed"`
+	Neighbours struct {
+		Method       string   `json:"method"`
+		K            int      `json:"k"`
+		Seconds      float64  `json:"seconds"`
+		Recall       *float64 `json:"recall,omitempty"`
+		RecallSample int      `json:"recall_sample,omitempty"`
+	} `json:"neighbours"`
+	Affinities struct {
+		Seconds float64 `json:"seconds"`
+		Entries int64   `json:"entries"`
+	} `json:"affinities"`
+	Optimiser struct {
+		Iterations   int     `json:"iterations"`
+		KL           float64 `json:"kl"`
+		Seconds      float64 `json:"seconds"`
+		Repulsion    string  `json:"repulsion"`
+		LearningRate float64 `json:"learning_rate"`
+	} `json:"optimiser"`
+	Quality         *quality           `json:"quality,omitempty"`
+	Phases          map[string]float64 `json:"phase_seconds"`
+	PeakMemoryBytes int64              `json:"peak_memory_bytes"`
+	SecondsTotal    float64            `json:"seconds_total"`
+	Caution         string             `json:"caution"`
+}
+
+func newReport(s settings, r runtimeOpts) report {
+	return report{Tool: "nightjar", Version: version, Input: s.Input, Parameters: s, Threads: r.Threads,
+		Cores: runtime.NumCPU(), GoVersion: runtime.Version(), Phases: map[string]float64{}, Caution: caution}
+}
+
+// writeReport writes rep as indented JSON, atomically.
+func writeReport(path string, rep *report) error {
+	b, err := json.MarshalIndent(rep, "", "  ")
+	if err != nil {
+		return fmt.Errorf("encoding report: %w", err)
+	}
+	b = append(b, '\n')
+	if err := checkpoint.AtomicWrite(path, func(w io.Writer) error { _, err := w.Write(b); return err }); err != nil {
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
+	return nil
+}
+
+// peakMemory returns the process's peak resident set size in bytes (Linux
+// reports ru_maxrss in KiB).
+func peakMemory() int64 {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return 0
+	}
+	return ru.Maxrss * 1024
+}
+
+// reduced describes the streamed PCA of --reduce: the map and the quality
+// scores then work in the space of the first To components.
+type reduced struct {
+	From     int       `json:"from_features"`
+	To       int       `json:"to_components"`
+	Variance []float64 `json:"component_variances"`
+}
