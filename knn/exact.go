@@ -40,7 +40,7 @@ type TooLargeError struct {
 
 // Error says how many rows were given and what to use instead.
 func (e *TooLargeError) Error() string {
-	return fmt.Sprintf("exact neighbours are limited to %d rows (the cost grows as N²), this table has %d: use the approximate method (--neighbours hnsw)", e.Limit, e.Rows)
+	return fmt.Sprintf("exact neighbours are limited to %d rows (the cost grows as N²), this table has %d: use an approximate method (--neighbours descent or auto)", e.Limit, e.Rows)
 }
 
 // Exact returns the exact k-nearest-neighbour graph of the N rows of x under

@@ -6,9 +6,10 @@ import (
 	"nightjar/knn"
 )
 
-// approxGraph builds the approximate neighbour graph (HNSW candidates, then
-// NN-descent refinement) with one progress bar per phase.
-func (j *job) approxGraph(k int, opt knn.Options) (*knn.Graph, error) {
+// approxGraph builds an approximate neighbour graph with one progress bar per
+// phase: "hnsw" takes HNSW candidates and refines them by NN-descent;
+// "descent" runs NN-descent from random neighbour lists.
+func (j *job) approxGraph(method string, k int, opt knn.Options) (*knn.Graph, error) {
 	ao := knn.DefaultApprox(j.table.N, k)
 	ao.Options = opt
 	ao.Seed = j.s.Seed
@@ -21,7 +22,11 @@ func (j *job) approxGraph(k int, opt knn.Options) (*knn.Graph, error) {
 		}
 		bar(done, total)
 	}
-	g, st, err := knn.Approx(j.table.Matrix, k, ao)
+	build := knn.Approx
+	if method == "descent" {
+		build = knn.Descent
+	}
+	g, st, err := build(j.table.Matrix, k, ao)
 	j.ui.done()
 	if err != nil {
 		return nil, fmt.Errorf("approximate neighbours: %w", err)

@@ -44,6 +44,11 @@ func runStatus(args []string, stdout, stderr io.Writer) error {
 	m := run.Manifest()
 	st := statusOut{Dir: run.Dir, Phase: m.Phase, Status: m.Status, Iteration: m.Iteration, Iterations: m.Iterations,
 		KL: m.KL, ElapsedSeconds: m.Elapsed, Updated: m.Updated, Input: m.Input.Path, ToolVersion: m.Version}
+	if m.Status == checkpoint.StatusRunning {
+		// The manifest is written at phase changes and checkpoints; a run
+		// that is still going has worked since its last update too.
+		st.ElapsedSeconds += time.Since(m.Updated).Seconds()
+	}
 	if m.Status != checkpoint.StatusFinished && m.SecondsPerIteration > 0 && m.Iterations > m.Iteration {
 		st.LeftSeconds = m.SecondsPerIteration * float64(m.Iterations-m.Iteration)
 		st.HasEstimateLeft = true
@@ -67,6 +72,9 @@ func runStatus(args []string, stdout, stderr io.Writer) error {
 	}
 	if st.ResumeCommand != "" {
 		fmt.Fprintf(stdout, "continue:   %s\n", st.ResumeCommand)
+	}
+	if m.Status == checkpoint.StatusRunning {
+		fmt.Fprintf(stdout, "note:       if no nightjar process is working on this run any more, it was killed; continue it with: nightjar resume %s\n", run.Dir)
 	}
 	return nil
 }
