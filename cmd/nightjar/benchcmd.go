@@ -127,18 +127,24 @@ func runBench(args []string, stdout, stderr io.Writer) error {
 			return err
 		}
 		meta.Rows = tab
+		bar := u.phase("bench", int64(total))
 		for _, c := range combos {
 			name := comboName(keys, n, len(sizes) > 1, c)
-			u.note("bench %d/%d: %s (%d rows)", step+1, total, name, tab)
+			bar(int64(step), int64(total))
+			u.describe(fmt.Sprintf("bench: %s (%d rows)", name, tab))
 			res := benchRun(self, input, filepath.Join(*out, "runs", strings.NewReplacer(" ", "_", "=", "-").Replace(name)), s, r, keys, n, len(sizes) > 1, c)
 			res.Name = name
-			if res.Err != "" {
-				u.note("  failed: %s", res.Err)
-			} else {
-				u.note("  %.1fs, peak %.0f MiB, trustworthiness %.4f, KL %.4f", res.Seconds, float64(res.PeakMem)/(1<<20), res.Trust, res.KL)
-			}
 			results = append(results, res)
 			step++
+			bar(int64(step), int64(total))
+		}
+		u.done()
+	}
+	for _, res := range results {
+		if res.Err != "" {
+			u.warn("bench %s failed: %s", res.Name, res.Err)
+		} else {
+			u.note("bench %s: %.1fs, peak %.0f MiB, trustworthiness %.4f, KL %.4f", res.Name, res.Seconds, float64(res.PeakMem)/(1<<20), res.Trust, res.KL)
 		}
 	}
 	if len(sizes) > 1 {
