@@ -51,7 +51,19 @@ func DrawTradeoff(w io.Writer, title, quality string, pts []TradeoffPoint) error
 		lb.Offset = vg.Point{X: vg.Points(4), Y: vg.Points(2)}
 	}
 	p.Add(sc, lb, plotter.NewGrid())
-	p.X.Min = 0
+	// Fix the ranges: x from 0 with room for the labels; y at least 0.02
+	// wide, so that differences in the fourth decimal do not fill the chart.
+	lo, hi, right := math.Inf(1), math.Inf(-1), 0.0
+	for _, xy := range xys {
+		lo, hi, right = math.Min(lo, xy.Y), math.Max(hi, xy.Y), math.Max(right, xy.X)
+	}
+	if hi-lo < 0.02 {
+		mid := (hi + lo) / 2
+		lo, hi = mid-0.01, mid+0.01
+	}
+	pad := (hi - lo) * 0.1
+	p.X.Min, p.X.Max = 0, right*1.2
+	p.Y.Min, p.Y.Max = lo-pad, hi+pad
 	wt, err := p.WriterTo(8*vg.Inch, 5*vg.Inch, "png")
 	if err != nil {
 		return fmt.Errorf("tradeoff chart: %w", err)

@@ -31,8 +31,10 @@ func (j *job) approxGraph(method string, k int, opt knn.Options) (*knn.Graph, er
 	if err != nil {
 		return nil, fmt.Errorf("approximate neighbours: %w", err)
 	}
-	j.rep.Phases["neighbours_build"] = st.BuildSeconds
-	j.rep.Phases["neighbours_query"] = st.QuerySeconds
+	if method == "hnsw" {
+		j.rep.Phases["neighbours_build"] = st.BuildSeconds
+		j.rep.Phases["neighbours_query"] = st.QuerySeconds
+	}
 	for i, s := range st.PassSeconds {
 		j.rep.Phases[fmt.Sprintf("neighbours_refine_%d", i+1)] = s
 	}
