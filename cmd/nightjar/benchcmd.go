@@ -60,11 +60,11 @@ func runBench(args []string, stdout, stderr io.Writer) error {
 	rows := fs.Int("rows", 0, "rows to use (0 = 20,000 for demo, all for mnist and files)")
 	scale := fs.String("scale", "", "comma-separated row counts: run the same settings at each size (demo or mnist)")
 	out := fs.String("out", "", "folder for the runs and the reports (default: a new ./nightjar-bench…)")
-	fs.Var(&vary, "vary", "KEY=V1,V2,… a setting to sweep (repeatable; runs every combination); keys: "+strings.Join(varyKeys, ", "))
+	fs.Var(&vary, "vary", "`KEY=V1,V2,…`: a setting to sweep (repeatable; runs every combination); keys: "+strings.Join(varyKeys, ", "))
 	var features listFlag
 	fs.StringVar(&s.ID, "id", "", "id column of a table file")
 	fs.StringVar(&s.Label, "label", "", "label column of a table file")
-	fs.Var(&features, "features", "feature columns of a table file (names and glob patterns)")
+	fs.Var(&features, "features", "feature columns of a table file: a `LIST` of names and glob patterns")
 	addSettingsFlags(fs, &s)
 	addRuntimeFlags(fs, &r)
 	if _, err := parseFlags(fs, args, 0); err != nil {

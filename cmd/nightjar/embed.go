@@ -22,7 +22,7 @@ func runEmbed(args []string, stdout, stderr io.Writer) error {
 	runDir := fs.String("run", "", "run directory to create; it holds checkpoints and the outputs (required)")
 	fs.StringVar(&s.ID, "id", "", "column carried through to the output to join on (optional)")
 	fs.StringVar(&s.Label, "label", "", "column used to colour the map and score label accuracy (optional)")
-	fs.Var(&features, "features", "feature columns: names and glob patterns, comma-separated (default: every numeric column but --id and --label)")
+	fs.Var(&features, "features", "feature columns: a `LIST` of names and glob patterns, comma-separated (default: every numeric column but --id and --label)")
 	fs.BoolVar(&s.SkipInvalid, "skip-invalid", false, "drop rows with NaN, Inf or empty features instead of stopping, and report how many")
 	addSettingsFlags(fs, &s)
 	addRuntimeFlags(fs, &r)

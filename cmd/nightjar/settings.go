@@ -88,7 +88,18 @@ func newFlags(name, summary, example string, stderr io.Writer) *flag.FlagSet {
 	fs.Usage = func() {
 		out := fs.Output()
 		fmt.Fprintf(out, "nightjar %s: %s\n\nExample:\n  %s\n\nOptions:\n", name, summary, example)
-		fs.PrintDefaults()
+		fs.VisitAll(func(f *flag.Flag) {
+			kind, usage := flag.UnquoteUsage(f)
+			line := "  --" + f.Name
+			if kind != "" {
+				line += " " + kind
+			}
+			fmt.Fprintf(out, "%s\n      %s", line, usage)
+			if f.DefValue != "" && f.DefValue != "false" && f.DefValue != "0" && f.DefValue != "[]" {
+				fmt.Fprintf(out, " (default %s)", f.DefValue)
+			}
+			fmt.Fprintln(out)
+		})
 	}
 	return fs
 }
