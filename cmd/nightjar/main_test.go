@@ -215,3 +215,25 @@ func TestEmbedHNSW(t *testing.T) {
 		t.Errorf("hnsw recall = %.4f", r)
 	}
 }
+
+// TestEmbedForeignParquet: a Parquet file written by another implementation
+// (DuckDB 1.5, see ingest/testdata/README.md) embeds through the CLI with --id
+// and --label, and the output joins back on the id in input order.
+func TestEmbedForeignParquet(t *testing.T) {
+	runDir := filepath.Join(t.TempDir(), "run")
+	code, _, errs := runCLI("embed", "--input", "../../ingest/testdata/buoys.parquet", "--run", runDir,
+		"--id", "station_id", "--label", "site", "--perplexity", "20", "--iterations", "200", "--early-iterations", "60", "--quiet")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	emb, err := ingest.Read(filepath.Join(runDir, fileEmbedding), ingest.Options{ID: "station_id", Label: "site"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if emb.N != 300 || emb.ID.Ints[0] != 1000 || emb.ID.Ints[299] != 1299 || emb.Label.String(1) != "kelp_bank" {
+		t.Errorf("embedding: %d rows, ids %d…%d, label[1] %q", emb.N, emb.ID.Ints[0], emb.ID.Ints[emb.N-1], emb.Label.String(1))
+	}
+	if f := readReport(t, runDir)["features"].(float64); f != 7 {
+		t.Errorf("features = %v, want the 7 numeric columns (the boolean is not numeric)", f)
+	}
+}
