@@ -121,26 +121,16 @@ func selectColumns(file string, cols []colInfo, opt Options) (selection, error) 
 
 // listNames lists up to max column names for messages, e.g. `"a", "b", … 12 more`.
 func listNames(cols []colInfo, max int) string {
-	if len(cols) == 0 {
-		return "no columns"
-	}
-	var b strings.Builder
-	b.WriteString("columns ")
-	for i, c := range cols {
-		if i == max {
-			fmt.Fprintf(&b, ", … %d more", len(cols)-max)
-			break
-		}
-		if i > 0 {
-			b.WriteString(", ")
-		}
-		fmt.Fprintf(&b, "%q", c.name)
-	}
-	return b.String()
+	return listCols(cols, max, func(c colInfo) string { return fmt.Sprintf("%q", c.name) })
 }
 
 // describeCols is listNames with the type of each column.
 func describeCols(cols []colInfo, max int) string {
+	return listCols(cols, max, func(c colInfo) string { return fmt.Sprintf("%q %s", c.name, c.typ) })
+}
+
+// listCols joins up to max columns as show formats them, counting the rest.
+func listCols(cols []colInfo, max int, show func(colInfo) string) string {
 	if len(cols) == 0 {
 		return "no columns"
 	}
@@ -154,7 +144,7 @@ func describeCols(cols []colInfo, max int) string {
 		if i > 0 {
 			b.WriteString(", ")
 		}
-		fmt.Fprintf(&b, "%q %s", c.name, c.typ)
+		b.WriteString(show(c))
 	}
 	return b.String()
 }

@@ -348,14 +348,8 @@ func (j *job) optimise(p gradient.Affinities) ([]float64, error) {
 	if err != nil {
 		return nil, err
 	}
-	y0, err := initialMap(j.table.Matrix, j.s.Dims)
-	if err != nil {
-		return nil, err
-	}
-	opt, err := gradient.New(p, y0, params)
-	if err != nil {
-		return nil, err
-	}
+	// A saved state, if any, replaces the PCA start (computed only when needed).
+	var restored *gradient.State
 	if iter, secs, warns, err := j.run.LoadState(); err == nil {
 		for _, w := range warns {
 			j.ui.warn("%v", w)
@@ -364,15 +358,28 @@ func (j *job) optimise(p gradient.Affinities) ([]float64, error) {
 		if err == nil && st.Iteration != iter {
 			err = fmt.Errorf("state file says iteration %d, its name %d", st.Iteration, iter)
 		}
-		if err == nil {
-			err = opt.Restore(st)
-		}
 		if err != nil {
 			return nil, fmt.Errorf("restoring the optimiser state of %s: %w", j.run.Dir, err)
 		}
-		j.ui.note("optimiser state restored at iteration %d (KL %.4f)", st.Iteration, st.KL)
+		restored = &st
 	} else if !errors.Is(err, checkpoint.ErrNoState) {
 		return nil, err
+	}
+	var y0 []float64
+	if restored != nil {
+		y0 = restored.Y
+	} else if y0, err = initialMap(j.table.Matrix, j.s.Dims); err != nil {
+		return nil, err
+	}
+	opt, err := gradient.New(p, y0, params)
+	if err != nil {
+		return nil, err
+	}
+	if restored != nil {
+		if err := opt.Restore(*restored); err != nil {
+			return nil, fmt.Errorf("restoring the optimiser state of %s: %w", j.run.Dir, err)
+		}
+		j.ui.note("optimiser state restored at iteration %d (KL %.4f)", restored.Iteration, restored.KL)
 	}
 	// From here a stop waits for the end of an iteration and its checkpoint.
 	j.inOpt.Store(true)
