@@ -167,12 +167,13 @@ type Params struct {
 	Method        Method  // repulsion method
 	// Threads is the number of goroutines, ≥ 1. Results do not depend on it.
 	Threads int
-	// Grid settings (Method Grid only); 0 = the defaults
-	// DefaultGridIntervals, DefaultGridNodes, DefaultGridSide. Accuracy is
-	// governed by the node spacing GridSide/GridNodes (see TestGridAccuracy).
-	GridIntervals int     // minimum number of intervals per axis, [0, 4096]
-	GridNodes     int     // interpolation nodes per interval per axis, [0, 8]
-	GridSide      float64 // largest interval side in map units, [0, 10]
+	// Grid settings (Method Grid only); 0 = the defaults DefaultGridMin,
+	// DefaultGridOrder, DefaultGridSpacing. Accuracy is governed by the node
+	// spacing and the order (see TestGridAccuracy); the cost of the FFTs
+	// grows like (map width / spacing)².
+	GridMin     int     // minimum number of nodes per axis, [0, 4096]
+	GridOrder   int     // interpolation nodes per axis around each point, [0, 8]
+	GridSpacing float64 // largest node spacing in map units, [0, 10]
 }
 
 // AutoLearningRate is the automatic learning rate for n rows and early
@@ -236,12 +237,12 @@ func (p Params) Validate(n int) error {
 		return bad("MinGain", p.MinGain, "a number in (0, 1]")
 	case p.Threads < 1:
 		return bad("Threads", p.Threads, "at least 1")
-	case p.GridIntervals < 0 || p.GridIntervals > 4096:
-		return bad("GridIntervals", p.GridIntervals, "0 (default) or an integer in [1, 4096]")
-	case p.GridNodes < 0 || p.GridNodes > 8:
-		return bad("GridNodes", p.GridNodes, "0 (default) or an integer in [1, 8]")
-	case !(p.GridSide >= 0 && p.GridSide <= 10):
-		return bad("GridSide", p.GridSide, "0 (default) or a number in (0, 10]")
+	case p.GridMin < 0 || p.GridMin > 4096:
+		return bad("GridMin", p.GridMin, "0 (default) or an integer in [1, 4096]")
+	case p.GridOrder < 0 || p.GridOrder > 8:
+		return bad("GridOrder", p.GridOrder, "0 (default) or an integer in [1, 8]")
+	case !(p.GridSpacing >= 0 && p.GridSpacing <= 10):
+		return bad("GridSpacing", p.GridSpacing, "0 (default) or a number in (0, 10]")
 	}
 	switch p.Method {
 	case Auto, Tree:
