@@ -4,6 +4,7 @@ import (
 	"encoding/binary"
 	"fmt"
 	"math"
+	"unsafe"
 )
 
 // The helpers below turn typed slices into little-endian section bytes and
@@ -119,4 +120,34 @@ func BytesUint64(b []byte) ([]uint64, error) {
 		v[i] = binary.LittleEndian.Uint64(b[8*i:])
 	}
 	return v, nil
+}
+
+// hostLittleEndian reports whether the machine stores integers
+// least-significant byte first, as the section format does.
+var hostLittleEndian = binary.NativeEndian.Uint16([]byte{1, 0}) == 1
+
+// View returns the little-endian section bytes of v for writing, like the
+// XBytes encoders above, but without a copy on little-endian hosts (amd64,
+// arm64 and most others): the bytes are then v's own memory, so v must not
+// change until they are written. A million-row P is about 1 GB; a copy
+// would double it while it is saved. On big-endian hosts View copies.
+func View[T int32 | int64 | uint64 | float32 | float64](v []T) []byte {
+	if len(v) == 0 {
+		return []byte{}
+	}
+	if hostLittleEndian {
+		return unsafe.Slice((*byte)(unsafe.Pointer(unsafe.SliceData(v))), len(v)*int(unsafe.Sizeof(v[0])))
+	}
+	switch w := any(v).(type) {
+	case []int32:
+		return Int32Bytes(w)
+	case []int64:
+		return Int64Bytes(w)
+	case []uint64:
+		return Uint64Bytes(w)
+	case []float32:
+		return Float32Bytes(w)
+	default:
+		return Float64Bytes(any(v).([]float64))
+	}
 }

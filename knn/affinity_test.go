@@ -317,6 +317,14 @@ func TestAffinityThreadsBitIdentical(t *testing.T) {
 	if !slices.Equal(a.Offsets, b.Offsets) || !slices.Equal(a.Cols, b.Cols) || !slices.Equal(a.Vals, b.Vals) {
 		t.Error("P differs between 1 and 3 threads")
 	}
+	// AffinityConsume must give the same bits from the graph's own storage.
+	c, err := AffinityConsume(&Graph{N: g.N, K: g.K, Index: slices.Clone(g.Index), Dist2: slices.Clone(g.Dist2)}, 4, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !slices.Equal(a.Offsets, c.Offsets) || !slices.Equal(a.Cols, c.Cols) || !slices.Equal(a.Vals, c.Vals) {
+		t.Error("AffinityConsume differs from Affinity")
+	}
 }
 
 func TestAffinityErrors(t *testing.T) {

@@ -7,6 +7,7 @@ import (
 	"io"
 	"os"
 	"os/signal"
+	"runtime"
 	"sync"
 	"sync/atomic"
 	"syscall"
@@ -91,8 +92,10 @@ func execute(run *checkpoint.Run, s settings, r runtimeOpts, resumed bool, stdou
 	if err != nil {
 		return err
 	}
-	j.P = p
-	y, err := j.optimise(p)
+	if p.N <= gradient.ExactLimit {
+		j.P = p // for the exact KL of the report
+	}
+	y, err := j.optimise(&p)
 	if err != nil {
 		return err
 	}
@@ -219,7 +222,10 @@ func (j *job) affinities() (gradient.Affinities, error) {
 	}
 	j.setStatus(checkpoint.StatusRunning, checkpoint.PhaseAffinities)
 	t0 := time.Now()
-	P, err := knn.Affinity(g, j.s.Perplexity, j.r.Threads)
+	// The graph is saved (or was loaded), so its memory can hold the
+	// conditional probabilities.
+	P, err := knn.AffinityConsume(g, j.s.Perplexity, j.r.Threads)
+	runtime.GC()
 	if err != nil {
 		return gradient.Affinities{}, err
 	}
@@ -342,9 +348,11 @@ func (j *job) loadP() (gradient.Affinities, bool) {
 }
 
 // optimise runs the optimiser from the newest state (or the PCA start),
-// writing states as it goes.
-func (j *job) optimise(p gradient.Affinities) ([]float64, error) {
-	params, err := j.s.gradientParams(p.N, j.r.Threads)
+// writing states as it goes. The optimiser keeps its own copy of P, so
+// optimise clears *pp once the optimiser exists, to free the caller's.
+func (j *job) optimise(pp *gradient.Affinities) ([]float64, error) {
+	n := pp.N
+	params, err := j.s.gradientParams(n, j.r.Threads)
 	if err != nil {
 		return nil, err
 	}
@@ -354,7 +362,7 @@ func (j *job) optimise(p gradient.Affinities) ([]float64, error) {
 		for _, w := range warns {
 			j.ui.warn("%v", w)
 		}
-		st, err := stateFromSections(secs, p.N, j.s.Dims)
+		st, err := stateFromSections(secs, n, j.s.Dims)
 		if err == nil && st.Iteration != iter {
 			err = fmt.Errorf("state file says iteration %d, its name %d", st.Iteration, iter)
 		}
@@ -371,10 +379,13 @@ func (j *job) optimise(p gradient.Affinities) ([]float64, error) {
 	} else if y0, err = initialMap(j.table.Matrix, j.s.Dims); err != nil {
 		return nil, err
 	}
-	opt, err := gradient.New(p, y0, params)
+	opt, err := gradient.New(*pp, y0, params)
 	if err != nil {
 		return nil, err
 	}
+	*pp = gradient.Affinities{}
+	y0 = nil
+	runtime.GC() // P as loaded or built is garbage now: reclaim it before it can stack up
 	if restored != nil {
 		if err := opt.Restore(*restored); err != nil {
 			return nil, fmt.Errorf("restoring the optimiser state of %s: %w", j.run.Dir, err)
@@ -392,7 +403,7 @@ func (j *job) optimise(p gradient.Affinities) ([]float64, error) {
 	// The bar's KL costs a pass over P with a logarithm per entry: show it
 	// less often on large tables.
 	klEvery := 10
-	if p.N > 100000 {
+	if n > 100000 {
 		klEvery = 50
 	}
 	for !opt.Done() {
@@ -424,7 +435,7 @@ func (j *job) optimise(p gradient.Affinities) ([]float64, error) {
 	j.rep.Optimiser.KL = opt.KL()
 	j.rep.Optimiser.Seconds = time.Since(t0).Seconds()
 	j.rep.Optimiser.Repulsion = opt.Method().String()
-	j.rep.Optimiser.LearningRate = params.EffectiveLearningRate(p.N)
+	j.rep.Optimiser.LearningRate = params.EffectiveLearningRate(n)
 	j.ui.note("optimised %d iterations in %.1fs, KL %.4f", opt.Iteration()-startIter, j.rep.Optimiser.Seconds, opt.KL())
 	return opt.Y(), nil
 }

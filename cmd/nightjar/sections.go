@@ -15,8 +15,8 @@ func graphSections(g *knn.Graph, report []byte) []checkpoint.Section {
 	return []checkpoint.Section{
 		{Name: "report", Data: report},
 		{Name: "shape", Data: checkpoint.Int64Bytes([]int64{int64(g.N), int64(g.K)})},
-		{Name: "index", Data: checkpoint.Int32Bytes(g.Index)},
-		{Name: "dist2", Data: checkpoint.Float32Bytes(g.Dist2)},
+		{Name: "index", Data: checkpoint.View(g.Index)},
+		{Name: "dist2", Data: checkpoint.View(g.Dist2)},
 	}
 }
 
@@ -24,9 +24,9 @@ func csrSections(p *knn.CSR, report []byte) []checkpoint.Section {
 	return []checkpoint.Section{
 		{Name: "report", Data: report},
 		{Name: "shape", Data: checkpoint.Int64Bytes([]int64{int64(p.N), int64(len(p.Vals))})},
-		{Name: "offsets", Data: checkpoint.Int64Bytes(p.Offsets)},
-		{Name: "cols", Data: checkpoint.Int32Bytes(p.Cols)},
-		{Name: "vals", Data: checkpoint.Float32Bytes(p.Vals)},
+		{Name: "offsets", Data: checkpoint.View(p.Offsets)},
+		{Name: "cols", Data: checkpoint.View(p.Cols)},
+		{Name: "vals", Data: checkpoint.View(p.Vals)},
 	}
 }
 
@@ -131,9 +131,9 @@ func stateSections(st gradient.State, seed uint64) []checkpoint.Section {
 		{Name: "iteration", Data: checkpoint.Int64Bytes([]int64{int64(st.Iteration)})},
 		{Name: "seed", Data: checkpoint.Uint64Bytes([]uint64{seed})},
 		{Name: "kl", Data: checkpoint.Float64Bytes([]float64{st.KL})},
-		{Name: "y", Data: checkpoint.Float64Bytes(st.Y)},
-		{Name: "update", Data: checkpoint.Float64Bytes(st.Update)},
-		{Name: "gains", Data: checkpoint.Float64Bytes(st.Gains)},
+		{Name: "y", Data: checkpoint.View(st.Y)},
+		{Name: "update", Data: checkpoint.View(st.Update)},
+		{Name: "gains", Data: checkpoint.View(st.Gains)},
 	}
 }
 
