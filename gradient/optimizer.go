@@ -22,7 +22,8 @@ type State struct {
 // the t-SNE objective (van der Maaten & Hinton 2008; Jacobs 1988 for the
 // gains). Schedule, for iteration t counted from 0: while t < EarlyIterations
 // the attractive term is multiplied by Exaggeration and the momentum is
-// MomentumEarly; afterwards no exaggeration and MomentumLate. Each Step:
+// MomentumEarly; afterwards by LateExaggeration (default 1, none) with
+// MomentumLate. KL is always reported without exaggeration. Each Step:
 //
 //	g      ← ∂L_ρ/∂Y (see Gradient; includes the constant 4)
 //	gain   ← gain + 0.2 where sign(g) ≠ sign(update), else gain·0.8; gain ≥ MinGain
@@ -142,7 +143,10 @@ func (o *Optimizer) Step() error {
 	if o.Done() {
 		return ErrDone
 	}
-	exag, mom := 1.0, o.params.MomentumLate
+	exag, mom := o.params.LateExaggeration, o.params.MomentumLate
+	if exag == 0 {
+		exag = 1
+	}
 	if o.iter < o.params.EarlyIterations {
 		exag, mom = o.params.Exaggeration, o.params.MomentumEarly
 	}

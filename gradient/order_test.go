@@ -50,7 +50,8 @@ func TestLocalityOrder(t *testing.T) {
 	}
 }
 
-// TestOptimizerFirstStep checks one Step, in input row order, against the
+// TestOptimizerFirstStep checks one Step, in input row order, in the early
+// phase and after it (with and without late exaggeration), against the
 // update written out from its definition (van der Maaten & Hinton 2008 for
 // the momentum step; Jacobs 1988 for the gains): on the first step every
 // gain with g ≠ 0 becomes 1.2, update = −(η/4)·1.2·g (the gradient keeping
@@ -61,39 +62,52 @@ func TestOptimizerFirstStep(t *testing.T) {
 	rng := rand.New(rand.NewPCG(9, 9))
 	p := randomP(n, 12, rng)
 	y0 := clusteredY(n, dims, 4, 5, 1, rng)
-	params := DefaultParams(n)
-	params.Method, params.Threads = Exact, 2
-	g := make([]float64, n*dims)
-	if _, err := Gradient(p, y0, params, params.Exaggeration, g); err != nil {
-		t.Fatal(err)
-	}
-	step := params.EffectiveLearningRate(n) / 4
-	want := make([]float64, n*dims)
-	var mean [dims]float64
-	for k := range want {
-		want[k] = y0[k] - step*1.2*g[k]
-		mean[k%dims] += want[k] / n
-	}
-	for k := range want {
-		want[k] -= mean[k%dims]
-	}
-	o, err := New(p, y0, params)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := o.Step(); err != nil {
-		t.Fatal(err)
-	}
-	got := o.Y()
-	for k := range want {
-		if math.Abs(got[k]-want[k]) > 1e-9*(1+math.Abs(want[k])) {
-			t.Fatalf("Y[%d] = %.15g, want %.15g", k, got[k], want[k])
-		}
-	}
-	st := o.State()
-	for k := range want {
-		if st.Gains[k] != 1.2 || st.Y[k] != got[k] {
-			t.Fatalf("state at %d: gain %v (want 1.2), Y %v (want %v)", k, st.Gains[k], st.Y[k], got[k])
-		}
+	for _, tc := range []struct {
+		name       string
+		early      int
+		late, exag float64 // LateExaggeration, and the factor the step must use
+	}{
+		{"early phase", 250, 0, 12},
+		{"late, default", 0, 0, 1},
+		{"late exaggeration 3", 0, 3, 3},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			params := DefaultParams(n)
+			params.Method, params.Threads = Exact, 2
+			params.EarlyIterations, params.LateExaggeration = tc.early, tc.late
+			g := make([]float64, n*dims)
+			if _, err := Gradient(p, y0, params, tc.exag, g); err != nil {
+				t.Fatal(err)
+			}
+			step := params.EffectiveLearningRate(n) / 4
+			want := make([]float64, n*dims)
+			var mean [dims]float64
+			for k := range want {
+				want[k] = y0[k] - step*1.2*g[k]
+				mean[k%dims] += want[k] / n
+			}
+			for k := range want {
+				want[k] -= mean[k%dims]
+			}
+			o, err := New(p, y0, params)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := o.Step(); err != nil {
+				t.Fatal(err)
+			}
+			got := o.Y()
+			for k := range want {
+				if math.Abs(got[k]-want[k]) > 1e-9*(1+math.Abs(want[k])) {
+					t.Fatalf("Y[%d] = %.15g, want %.15g", k, got[k], want[k])
+				}
+			}
+			st := o.State()
+			for k := range want {
+				if st.Gains[k] != 1.2 || st.Y[k] != got[k] {
+					t.Fatalf("state at %d: gain %v (want 1.2), Y %v (want %v)", k, st.Gains[k], st.Y[k], got[k])
+				}
+			}
+		})
 	}
 }

@@ -376,6 +376,10 @@ func (j *job) optimise(pp *gradient.Affinities) ([]float64, error) {
 	var y0 []float64
 	if restored != nil {
 		y0 = restored.Y
+	} else if j.s.Start == "subsample" && j.s.StartRows < n {
+		if y0, err = j.subsampleStart(*pp, j.r.Threads); err != nil {
+			return nil, err
+		}
 	} else if y0, err = initialMap(j.table.Matrix, j.s.Dims); err != nil {
 		return nil, err
 	}

@@ -36,13 +36,18 @@ type settings struct {
 	Iterations      int     `json:"iterations"`
 	EarlyIterations int     `json:"early_iterations"`
 	Exaggeration    float64 `json:"exaggeration"`
-	LearningRate    float64 `json:"learning_rate"`
-	MomentumEarly   float64 `json:"momentum_early"`
-	MomentumLate    float64 `json:"momentum_late"`
-	Dof             float64 `json:"degrees_of_freedom"`
-	Theta           float64 `json:"theta"`
-	Repulsion       string  `json:"repulsion"`
-	Seed            uint64  `json:"seed"`
+	// LateExaggeration and the start: absent from manifests written before
+	// they existed; 0 and "" then mean 1 and "pca".
+	LateExaggeration float64 `json:"late_exaggeration"`
+	Start            string  `json:"start"`
+	StartRows        int     `json:"start_rows"`
+	LearningRate     float64 `json:"learning_rate"`
+	MomentumEarly    float64 `json:"momentum_early"`
+	MomentumLate     float64 `json:"momentum_late"`
+	Dof              float64 `json:"degrees_of_freedom"`
+	Theta            float64 `json:"theta"`
+	Repulsion        string  `json:"repulsion"`
+	Seed             uint64  `json:"seed"`
 }
 
 // runtimeOpts do not change the result.
@@ -62,7 +67,8 @@ func defaultSettings() settings {
 	// θ = 0.5 (van der Maaten 2014), Cauchy kernel (degrees of freedom 1).
 	return settings{
 		Dims: 2, Perplexity: 30, Neighbours: "auto", Metric: "euclidean", CheckRecall: 1000,
-		Iterations: 1000, EarlyIterations: 250, Exaggeration: 12,
+		Iterations: 1000, EarlyIterations: 250, Exaggeration: 12, LateExaggeration: 1,
+		Start: "pca", StartRows: 25000,
 		MomentumEarly: 0.5, MomentumLate: 0.8, Dof: 1, Theta: 0.5,
 		Repulsion: "auto", Seed: 1,
 	}
@@ -153,6 +159,9 @@ func addSettingsFlags(fs *flag.FlagSet, s *settings) {
 	fs.IntVar(&s.Iterations, "iterations", s.Iterations, "optimiser iterations in all, early exaggeration included")
 	fs.IntVar(&s.EarlyIterations, "early-iterations", s.EarlyIterations, "iterations with early exaggeration")
 	fs.Float64Var(&s.Exaggeration, "exaggeration", s.Exaggeration, "early exaggeration factor")
+	fs.Float64Var(&s.LateExaggeration, "late-exaggeration", s.LateExaggeration, "exaggeration after the early phase; above 1 keeps clusters tighter and more of the global layout on very large tables (Kobak & Berens 2019)")
+	fs.StringVar(&s.Start, "start", s.Start, "starting map: pca (first principal components) or subsample (map --start-rows random rows first, place the others among their neighbours; Kobak & Berens 2019)")
+	fs.IntVar(&s.StartRows, "start-rows", s.StartRows, "rows mapped first by --start subsample")
 	fs.Float64Var(&s.LearningRate, "learning-rate", s.LearningRate, "step size; 0 = automatic (rows / exaggeration, with a floor)")
 	fs.Float64Var(&s.MomentumEarly, "momentum-early", s.MomentumEarly, "momentum during early exaggeration")
 	fs.Float64Var(&s.MomentumLate, "momentum", s.MomentumLate, "momentum after early exaggeration")
@@ -187,6 +196,17 @@ func (s *settings) check() error {
 	if s.CheckRecall < 0 {
 		return usagef("--check-recall must be 0 or more, got %d", s.CheckRecall)
 	}
+	switch s.Start {
+	case "pca", "subsample":
+	default:
+		return usagef("--start must be pca or subsample, got %q", s.Start)
+	}
+	if s.Start == "subsample" && s.StartRows < 100 {
+		return usagef("--start-rows must be at least 100, got %d", s.StartRows)
+	}
+	if !(s.LateExaggeration > 0 && s.LateExaggeration <= 1e4) {
+		return usagef("--late-exaggeration must be in (0, 10000], got %g", s.LateExaggeration)
+	}
 	if s.Iterations < 1 || s.EarlyIterations < 0 || s.EarlyIterations > s.Iterations {
 		return usagef("--iterations (%d) must be at least 1 and at least --early-iterations (%d)", s.Iterations, s.EarlyIterations)
 	}
@@ -218,6 +238,7 @@ func (s *settings) gradientParams(n, threads int) (gradient.Params, error) {
 	}
 	p.Dims, p.Dof, p.Theta = s.Dims, s.Dof, s.Theta
 	p.Exaggeration, p.EarlyIterations, p.Iterations = s.Exaggeration, s.EarlyIterations, s.Iterations
+	p.LateExaggeration = s.LateExaggeration
 	p.LearningRate, p.MomentumEarly, p.MomentumLate = s.LearningRate, s.MomentumEarly, s.MomentumLate
 	p.Method, p.Threads = method, threads
 	if err := p.Validate(n); err != nil {

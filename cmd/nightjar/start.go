@@ -1,0 +1,153 @@
+package main
+
+import (
+	"fmt"
+	"math/rand/v2"
+	"slices"
+	"time"
+
+	"nightjar/gradient"
+	"nightjar/ingest"
+	"nightjar/knn"
+)
+
+// startStream separates the subsample draw from the other uses of --seed.
+const startStream = 0x5ab5a3
+
+// subsampleStart maps StartRows random rows first and places every other row
+// at the P-weighted mean of the map positions of its neighbours that are
+// already placed, in passes until every row is placed. Kobak & Berens 2019
+// (Nat. Commun. 10:5416) start very large maps this way so that the layout
+// of the clusters comes from a map small enough to settle; they place a row
+// at the median of its nearest subsample rows, we use its affinities as
+// weights since P is at hand. The result is scaled like the PCA start.
+//
+// It is deterministic for a seed, and so a resumed run that has no state yet
+// recomputes the same start. A stop during it stops at once (nothing is
+// saved; the start is recomputed on resume).
+func (j *job) subsampleStart(P gradient.Affinities, threads int) ([]float64, error) {
+	x, d := j.table.Matrix, j.s.Dims
+	n := x.N
+	m := min(n, j.s.StartRows)
+	t0 := time.Now()
+	rng := rand.New(rand.NewPCG(j.s.Seed, startStream))
+	rows := rng.Perm(n)[:m]
+	slices.Sort(rows)
+	sub := ingest.Matrix{N: m, D: x.D, Data: make([]float32, 0, m*x.D)}
+	for _, i := range rows {
+		sub.Data = append(sub.Data, x.Row(i)...)
+	}
+	// The subsample's own perplexity, lowered if it has too few rows.
+	perp := min(j.s.Perplexity, float64(m-1)/3)
+	k := knn.Neighbours(perp, m)
+	metric, _ := knn.ParseMetric(j.s.Metric)
+	opt := knn.Options{Threads: threads, Metric: metric}
+	var g *knn.Graph
+	var err error
+	if m <= knn.ExactLimit/4 {
+		g, err = knn.Exact(sub, k, opt)
+	} else {
+		ao := knn.DefaultApprox(m, k)
+		ao.Options, ao.Seed = opt, j.s.Seed
+		g, _, err = knn.Descent(sub, k, ao)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("subsample start: %w", err)
+	}
+	Psub, err := knn.AffinityConsume(g, perp, threads)
+	if err != nil {
+		return nil, fmt.Errorf("subsample start: %w", err)
+	}
+	y0, err := initialMap(sub, d)
+	if err != nil {
+		return nil, err
+	}
+	params, err := j.s.gradientParams(m, threads)
+	if err != nil {
+		return nil, err
+	}
+	o, err := gradient.New(toAffinities(Psub), y0, params)
+	if err != nil {
+		return nil, fmt.Errorf("subsample start: %w", err)
+	}
+	bar := j.ui.phase(fmt.Sprintf("start: mapping %d sampled rows", m), int64(params.Iterations))
+	for !o.Done() {
+		if err := o.Step(); err != nil {
+			return nil, fmt.Errorf("subsample start: %w", err)
+		}
+		bar(int64(o.Iteration()), int64(params.Iterations))
+	}
+	j.ui.done()
+	y := placeAround(P, rows, o.Y(), d)
+	gradient.InitScale(y, d, 1e-4)
+	j.rep.Phases["start_subsample"] = time.Since(t0).Seconds()
+	j.ui.note("start: %d sampled rows mapped, the other %d placed among their neighbours, %.1fs", m, n-m, time.Since(t0).Seconds())
+	return y, nil
+}
+
+// placeAround returns an N×d map where row rows[s] is at ysub[s] and every
+// other row at the P-weighted mean of its neighbours placed in an earlier
+// pass (passes are Jacobi-style, so the result does not depend on the order
+// of rows). Rows that no pass reaches (a component of P without a sampled
+// row) go to the mean of the sampled rows.
+func placeAround(P gradient.Affinities, rows []int, ysub []float64, d int) []float64 {
+	n := P.N
+	y := make([]float64, n*d)
+	placed := make([]bool, n)
+	var centre [3]float64
+	for s, i := range rows {
+		copy(y[i*d:i*d+d], ysub[s*d:s*d+d])
+		placed[i] = true
+		for c := 0; c < d; c++ {
+			centre[c] += ysub[s*d+c] / float64(len(rows))
+		}
+	}
+	var pending []int32
+	for i := range n {
+		if !placed[i] {
+			pending = append(pending, int32(i))
+		}
+	}
+	type position struct {
+		row int32
+		at  [3]float64
+	}
+	var fresh []position
+	for len(pending) > 0 {
+		fresh = fresh[:0]
+		next := pending[:0:0]
+		for _, i := range pending {
+			var sum [3]float64
+			var w float64
+			for e := P.Offsets[i]; e < P.Offsets[i+1]; e++ {
+				if j := int(P.Cols[e]); placed[j] {
+					p := float64(P.Vals[e])
+					w += p
+					for c := 0; c < d; c++ {
+						sum[c] += p * y[j*d+c]
+					}
+				}
+			}
+			if w == 0 {
+				next = append(next, i)
+				continue
+			}
+			for c := 0; c < d; c++ {
+				sum[c] /= w
+			}
+			fresh = append(fresh, position{i, sum})
+		}
+		if len(fresh) == 0 { // no sampled row reaches these
+			for _, i := range next {
+				copy(y[int(i)*d:int(i)*d+d], centre[:d])
+			}
+			break
+		}
+		for _, f := range fresh {
+			copy(y[int(f.row)*d:int(f.row)*d+d], f.at[:d])
+			placed[f.row] = true
+		}
+		pending = next
+	}
+	return y
+}
