@@ -26,7 +26,10 @@ type Result struct {
 	LabelAcc float64 // leave-one-out 10-NN label accuracy in the map
 	InputAcc float64 // the same in the input space
 	KL       float64
-	Err      string // non-empty when the run failed
+	IterSecs float64 // optimiser seconds per iteration
+	AffSecs  float64 // affinity phase
+	Centroid float64 // CentroidRank of the map (labelled data)
+	Err      string  // non-empty when the run failed
 }
 
 // Meta is the header of a sweep report: what ran where.
@@ -41,7 +44,8 @@ type Meta struct {
 }
 
 var resultCols = []string{"seconds", "neighbour_seconds", "optimiser_seconds", "peak_memory_mib",
-	"recall", "trustworthiness", "continuity", "preservation", "label_accuracy_map", "label_accuracy_input", "kl", "error"}
+	"recall", "trustworthiness", "continuity", "preservation", "label_accuracy_map", "label_accuracy_input", "kl",
+	"seconds_per_iteration", "affinity_seconds", "centroid_rank", "error"}
 
 func (r Result) fields() []string {
 	f := func(v float64, prec int) string {
@@ -51,7 +55,8 @@ func (r Result) fields() []string {
 		return strconv.FormatFloat(v, 'f', prec, 64)
 	}
 	return []string{f(r.Seconds, 2), f(r.KNNSecs, 2), f(r.OptSecs, 2), f(float64(r.PeakMem)/(1<<20), 0),
-		f(r.Recall, 4), f(r.Trust, 4), f(r.Cont, 4), f(r.Preserve, 4), f(r.LabelAcc, 4), f(r.InputAcc, 4), f(r.KL, 4), r.Err}
+		f(r.Recall, 4), f(r.Trust, 4), f(r.Cont, 4), f(r.Preserve, 4), f(r.LabelAcc, 4), f(r.InputAcc, 4), f(r.KL, 4),
+		f(r.IterSecs, 3), f(r.AffSecs, 2), f(r.Centroid, 4), r.Err}
 }
 
 // WriteCSV writes the results as CSV: comment lines with the header (machine,

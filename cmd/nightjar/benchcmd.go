@@ -24,7 +24,7 @@ const benchExample = "nightjar bench --data mnist --rows 20000 --vary theta=0.25
 
 // varyKeys are the settings a sweep may vary: the embed options of the same names.
 var varyKeys = []string{"theta", "perplexity", "neighbours", "metric", "iterations", "early-iterations",
-	"exaggeration", "learning-rate", "degrees-of-freedom", "repulsion", "dims", "threads", "seed"}
+	"exaggeration", "late-exaggeration", "start", "start-rows", "learning-rate", "degrees-of-freedom", "repulsion", "dims", "threads", "seed"}
 
 type varyFlag []struct {
 	key  string
@@ -224,7 +224,7 @@ func benchData(data string, n int, out string, s *settings, u *ui) (string, int,
 // own) and reads its report.
 func benchRun(self, input, runDir string, s settings, r runtimeOpts, keys []string, n int, withRows bool, vals []string) bench.Result {
 	nan := math.NaN()
-	res := bench.Result{Values: append([]string{}, vals...), Recall: nan, Trust: nan, Cont: nan, Preserve: nan, LabelAcc: nan, InputAcc: nan, KL: nan}
+	res := bench.Result{Values: append([]string{}, vals...), Recall: nan, Trust: nan, Cont: nan, Preserve: nan, LabelAcc: nan, InputAcc: nan, KL: nan, IterSecs: nan, AffSecs: nan, Centroid: nan}
 	if withRows {
 		res.Values = append([]string{strconv.Itoa(n)}, res.Values...)
 	}
@@ -263,6 +263,10 @@ func benchRun(self, input, runDir string, s settings, r runtimeOpts, keys []stri
 		return res
 	}
 	res.Rows, res.KNNSecs, res.OptSecs, res.PeakMem, res.KL = rep.Rows, rep.Neighbours.Seconds, rep.Optimiser.Seconds, rep.PeakMemoryBytes, rep.Optimiser.KL
+	res.AffSecs = rep.Affinities.Seconds
+	if rep.Optimiser.Iterations > 0 {
+		res.IterSecs = rep.Optimiser.Seconds / float64(rep.Optimiser.Iterations)
+	}
 	if rep.Neighbours.Recall != nil {
 		res.Recall = *rep.Neighbours.Recall
 	}
@@ -270,6 +274,9 @@ func benchRun(self, input, runDir string, s settings, r runtimeOpts, keys []stri
 		res.Trust, res.Cont, res.Preserve, res.KL = q.Trustworthiness, q.Continuity, q.Preservation, q.KL
 		if q.LabelAccuracyMap != nil {
 			res.LabelAcc, res.InputAcc = *q.LabelAccuracyMap, *q.LabelAccuracyInput
+		}
+		if q.CentroidRank != nil {
+			res.Centroid = *q.CentroidRank
 		}
 	}
 	return res
@@ -281,6 +288,7 @@ func settingsArgs(s settings) []string {
 	a := []string{"--dims", strconv.Itoa(s.Dims), "--perplexity", f(s.Perplexity), "--neighbours", s.Neighbours,
 		"--metric", s.Metric, "--check-recall", strconv.Itoa(s.CheckRecall), "--iterations", strconv.Itoa(s.Iterations),
 		"--early-iterations", strconv.Itoa(s.EarlyIterations), "--exaggeration", f(s.Exaggeration),
+		"--late-exaggeration", f(s.LateExaggeration), "--start", s.Start, "--start-rows", strconv.Itoa(s.StartRows),
 		"--learning-rate", f(s.LearningRate), "--momentum-early", f(s.MomentumEarly), "--momentum", f(s.MomentumLate),
 		"--degrees-of-freedom", f(s.Dof), "--theta", f(s.Theta), "--repulsion", s.Repulsion, "--seed", strconv.FormatUint(s.Seed, 10)}
 	if s.ID != "" {

@@ -196,6 +196,7 @@ func (j *job) readInput(resumed bool) error {
 	j.ui.note("read %d rows × %d features from %s (%s) in %.1fs", t.N, t.D, j.s.Input, t.Format, time.Since(t0).Seconds())
 	j.rep.Rows, j.rep.Features, j.rep.Skipped, j.rep.Format = t.N, t.D, t.Skipped, t.Format
 	j.rep.Phases["read"] = time.Since(t0).Seconds()
+	j.rep.PhaseMemory["read"] = peakMemory()
 	return nil
 }
 
@@ -234,6 +235,7 @@ func (j *job) affinities() (gradient.Affinities, error) {
 	if err := j.run.SaveArtifact(fileP, "affinity", csrSections(P, j.phaseReport())); err != nil {
 		return gradient.Affinities{}, err
 	}
+	j.rep.PhaseMemory["affinities"] = peakMemory()
 	j.ui.note("affinities: perplexity %g, %d entries, %.1fs", j.s.Perplexity, len(P.Vals), j.rep.Affinities.Seconds)
 	return toAffinities(P), nil
 }
@@ -282,6 +284,7 @@ func (j *job) neighbours(k int) (*knn.Graph, error) {
 		j.ui.note("neighbour recall@%d = %.4f on %d sampled rows (%.1fs)", k, rec, rows, time.Since(t1).Seconds())
 	}
 	j.ui.note("neighbours: %s, k = %d, %.1fs", method, k, j.rep.Neighbours.Seconds)
+	j.rep.PhaseMemory["neighbours"] = peakMemory()
 	if err := j.run.SaveArtifact(fileGraph, "graph", graphSections(g, j.phaseReport())); err != nil {
 		return nil, err
 	}
@@ -435,6 +438,7 @@ func (j *job) optimise(pp *gradient.Affinities) ([]float64, error) {
 		}
 	}
 	j.ui.done()
+	j.rep.PhaseMemory["optimiser"] = peakMemory()
 	j.rep.Optimiser.Iterations = opt.Iteration()
 	j.rep.Optimiser.KL = opt.KL()
 	j.rep.Optimiser.Seconds = time.Since(t0).Seconds()
@@ -492,6 +496,7 @@ func (j *job) finish(y []float64) error {
 		return fmt.Errorf("drawing %s: %w", fileMap, err)
 	}
 	j.rep.Phases["outputs"] = time.Since(t0).Seconds()
+	j.rep.PhaseMemory["outputs"] = peakMemory()
 	if j.r.ScoreSample > 0 {
 		t1 := time.Now()
 		j.ui.note("scoring the map on %d sampled rows", min(j.r.ScoreSample, t.N))
@@ -499,6 +504,7 @@ func (j *job) finish(y []float64) error {
 		q.KL, q.KLMethod = finalKL(j.P, y, j.s, j.rep.Optimiser.KL)
 		j.rep.Quality = &q
 		j.rep.Phases["scores"] = time.Since(t1).Seconds()
+		j.rep.PhaseMemory["scores"] = peakMemory()
 	}
 	j.rep.SecondsTotal = time.Since(j.start).Seconds()
 	j.rep.PeakMemoryBytes = peakMemory()

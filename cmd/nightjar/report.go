@@ -51,13 +51,17 @@ type report struct {
 	Quality         *quality           `json:"quality,omitempty"`
 	Phases          map[string]float64 `json:"phase_seconds"`
 	PeakMemoryBytes int64              `json:"peak_memory_bytes"`
-	SecondsTotal    float64            `json:"seconds_total"`
-	Caution         string             `json:"caution"`
+	// PhaseMemory is the process's peak resident memory at the end of each
+	// phase run by this process: a running maximum, so the first phase whose
+	// figure reaches PeakMemoryBytes is the one that set the peak.
+	PhaseMemory  map[string]int64 `json:"peak_memory_bytes_after"`
+	SecondsTotal float64          `json:"seconds_total"`
+	Caution      string           `json:"caution"`
 }
 
 func newReport(s settings, r runtimeOpts) report {
 	return report{Tool: "nightjar", Version: version, Input: s.Input, Parameters: s, Threads: r.Threads,
-		Cores: runtime.NumCPU(), GoVersion: runtime.Version(), Phases: map[string]float64{}, Caution: caution}
+		Cores: runtime.NumCPU(), GoVersion: runtime.Version(), Phases: map[string]float64{}, PhaseMemory: map[string]int64{}, Caution: caution}
 }
 
 // writeReport writes rep as indented JSON, atomically.

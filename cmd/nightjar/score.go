@@ -4,6 +4,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"time"
 
@@ -23,9 +24,12 @@ type quality struct {
 	LabelAccuracyMap   *float64 `json:"label_accuracy_map,omitempty"`
 	LabelAccuracyInput *float64 `json:"label_accuracy_input,omitempty"`
 	LabelK             int      `json:"label_k,omitempty"`
-	KL                 float64  `json:"kl"`
-	KLMethod           string   `json:"kl_method"`
-	Seconds            float64  `json:"seconds"`
+	// CentroidRank is bench.CentroidRank: how well the map keeps the order
+	// of distances between the labelled groups' centroids.
+	CentroidRank *float64 `json:"centroid_rank,omitempty"`
+	KL           float64  `json:"kl"`
+	KLMethod     string   `json:"kl_method"`
+	Seconds      float64  `json:"seconds"`
 }
 
 // scoreK is the neighbourhood size of the scores (trustworthiness@10 is the
@@ -47,6 +51,9 @@ func scoreMap(x ingest.Matrix, y []float64, dims int, labels []string, k, sample
 		mapAcc := bench.LabelAccuracy(bench.MapSpace(y, dims), labels, 10, rows, threads)
 		inAcc := bench.LabelAccuracy(bench.InputSpace(x), labels, 10, rows, threads)
 		q.LabelAccuracyMap, q.LabelAccuracyInput, q.LabelK = &mapAcc, &inAcc, 10
+		if c := bench.CentroidRank(x, y, dims, labels); !math.IsNaN(c) {
+			q.CentroidRank = &c
+		}
 	}
 	q.Seconds = time.Since(t0).Seconds()
 	return q
