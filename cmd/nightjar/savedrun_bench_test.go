@@ -1,0 +1,71 @@
+package main
+
+import (
+	"fmt"
+	"os"
+	"testing"
+
+	"nightjar/checkpoint"
+	"nightjar/gradient"
+)
+
+// BenchmarkSavedRun times optimiser steps on the P and the newest state of a
+// real run directory (a finished or interrupted run with a saved P), for the
+// tree and grid repulsions in one process, so their ratio is measured on a
+// real map of real size. Set NIGHTJAR_BENCH_RUN to the run directory, e.g.
+//
+//	nightjar demo --rows 1000000 --run /tmp/demo1M
+//	NIGHTJAR_BENCH_RUN=/tmp/demo1M go test ./cmd/nightjar -run XXX -bench SavedRun -benchtime 5x -count 3
+//
+// Without it there is nothing to time and the benchmark says so.
+func BenchmarkSavedRun(b *testing.B) {
+	dir := os.Getenv("NIGHTJAR_BENCH_RUN")
+	if dir == "" {
+		b.Skip("set NIGHTJAR_BENCH_RUN to a run directory with a saved P and state")
+	}
+	run, err := checkpoint.Open(dir)
+	if err != nil {
+		b.Fatal(err)
+	}
+	secs, err := run.LoadArtifact(fileP, "affinity")
+	if err != nil {
+		b.Fatal(err)
+	}
+	shape, err := int64s(secs, "shape")
+	if err != nil {
+		b.Fatal(err)
+	}
+	n := int(shape[0])
+	P, err := csrFromSections(secs, n)
+	if err != nil {
+		b.Fatal(err)
+	}
+	secs = nil
+	_, ss, _, err := run.LoadState()
+	if err != nil {
+		b.Fatal(err)
+	}
+	st, err := stateFromSections(ss, n, 2)
+	if err != nil {
+		b.Fatal(err)
+	}
+	for _, m := range []gradient.Method{gradient.Tree, gradient.Grid} {
+		b.Run(fmt.Sprintf("N=%d/%v", n, m), func(b *testing.B) {
+			params := gradient.DefaultParams(n)
+			params.Iterations, params.EarlyIterations, params.Method = 1<<30, 0, m
+			o, err := gradient.New(toAffinities(P), st.Y, params)
+			if err != nil {
+				b.Fatal(err)
+			}
+			if err := o.Step(); err != nil { // the first step sizes the buffers
+				b.Fatal(err)
+			}
+			b.ResetTimer()
+			for range b.N {
+				if err := o.Step(); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+	}
+}
