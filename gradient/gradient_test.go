@@ -328,6 +328,7 @@ func TestThreadsSameBits(t *testing.T) {
 				params := DefaultParams(tc.n)
 				params.Dims, params.Method, params.Threads = tc.dims, tc.m, threads
 				params.EarlyIterations, params.Iterations = 10, 20
+				params.GridMin = 60 // still 8 blocks of spreading rows, fewer FFT nodes
 				o, err := New(p, y0, params)
 				if err != nil {
 					t.Fatal(err)
@@ -459,7 +460,7 @@ func TestKLFalls(t *testing.T) {
 			InitScale(y0, dims, 1e-4)
 			params := DefaultParams(n)
 			params.Dims, params.EarlyIterations, params.Iterations, params.Method = dims, 100, 300, tc.m
-			params.GridMin = 30 // a small map: keep the FFT small
+			params.GridMin, params.GridSpacing = 30, 0.5 // a small map: keep the FFT small
 			o, err := New(p, y0, params)
 			if err != nil {
 				t.Fatal(err)
