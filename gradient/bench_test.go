@@ -124,26 +124,32 @@ func BenchmarkRepulsion(b *testing.B) {
 	}
 }
 
-// BenchmarkStep is one optimiser Step (tree) at N = 100,000, 2-D.
+// BenchmarkStep is one optimiser Step at N = 100,000, 2-D, tree and grid
+// repulsion, 1 and 2 threads (the thread ratio is the figure to quote).
 func BenchmarkStep(b *testing.B) {
 	const n = 100000
 	p := benchP(b, n, 90)
 	y0 := benchY(n, 2)
-	for _, threads := range []int{1, 2} {
-		b.Run(fmt.Sprintf("N=%d/threads=%d", n, threads), func(b *testing.B) {
-			params := DefaultParams(n)
-			params.Method, params.Threads, params.Iterations = Tree, threads, 1<<30
-			params.EarlyIterations = 0
-			o, err := New(p, y0, params)
-			if err != nil {
-				b.Fatal(err)
-			}
-			b.ResetTimer()
-			for range b.N {
-				if err := o.Step(); err != nil {
+	for _, m := range []Method{Tree, Grid} {
+		for _, threads := range []int{1, 2} {
+			b.Run(fmt.Sprintf("N=%d/%v/threads=%d", n, m, threads), func(b *testing.B) {
+				params := DefaultParams(n)
+				params.Method, params.Threads, params.Iterations = m, threads, 1<<30
+				params.EarlyIterations = 0
+				o, err := New(p, y0, params)
+				if err != nil {
 					b.Fatal(err)
 				}
-			}
-		})
+				if err := o.Step(); err != nil { // sizes the buffers
+					b.Fatal(err)
+				}
+				b.ResetTimer()
+				for range b.N {
+					if err := o.Step(); err != nil {
+						b.Fatal(err)
+					}
+				}
+			})
+		}
 	}
 }

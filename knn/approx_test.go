@@ -4,6 +4,7 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"runtime/debug"
 	"slices"
 	"sync"
 	"testing"
@@ -111,18 +112,21 @@ func TestApproxRecall(t *testing.T) {
 		threads      int
 		minRecall    float64
 		shards, pass int
+		indexRows    int
 		build        func(ingest.Matrix, int, ApproxOptions) (*Graph, ApproxStats, error)
 	}{
-		{"clustered 5000×20 k=30", 5000, 20, 25, 30, Euclidean, 2, 0.97, 0, 8, Approx},
-		{"clustered 3000×10 k=15 one shard", 3000, 10, 10, 15, Euclidean, 2, 0.97, 1, 8, Approx},
-		{"clustered 3000×30 k=10 cosine", 3000, 30, 15, 10, Cosine, 1, 0.97, 2, 8, Approx},
-		{"descent only 4000×20 k=30", 4000, 20, 25, 30, Euclidean, 2, 0.97, 0, 10, Descent},
+		{"clustered 5000×20 k=30", 5000, 20, 25, 30, Euclidean, 2, 0.97, 0, 8, 0, Approx},
+		{"clustered 5000×20 k=30 index on 600 rows", 5000, 20, 25, 30, Euclidean, 2, 0.97, 0, 8, 600, Approx},
+		{"clustered 3000×10 k=15 two shards", 3000, 10, 10, 15, Euclidean, 2, 0.97, 2, 8, 0, Approx},
+		{"clustered 3000×30 k=10 cosine", 3000, 30, 15, 10, Cosine, 1, 0.97, 2, 8, 0, Approx},
+		{"descent only 4000×20 k=30", 4000, 20, 25, 30, Euclidean, 2, 0.97, 0, 10, 0, Descent},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			x := axClustered(c.n, c.d, c.c, 11)
 			opt := DefaultApprox(c.n, c.k)
 			opt.Threads, opt.Metric, opt.Shards, opt.MaxPasses = c.threads, c.metric, c.shards, c.pass
+			opt.IndexRows = c.indexRows
 			g, st, err := c.build(x, c.k, opt)
 			if err != nil {
 				t.Fatal(err)
@@ -475,6 +479,24 @@ func TestApproxInsertOrderFree(t *testing.T) {
 		}
 		if !slices.Equal(row, ref) {
 			t.Fatalf("order %d gave %v, first order %v", trial, row, ref)
+		}
+	}
+}
+
+// TestApproxRestoresGCPercent: Approx lowers GOGC while it queries the index
+// (see hnsw.go) and must leave the caller's setting as it found it, including
+// a setting stricter than its own and a collector turned off (−1).
+func TestApproxRestoresGCPercent(t *testing.T) {
+	x := axClustered(400, 4, 3, 5)
+	for _, gc := range []int{100, 50, queryGCPercent - 10, -1} {
+		prev := debug.SetGCPercent(gc)
+		_, _, err := Approx(x, 5, DefaultApprox(x.N, 5))
+		got := debug.SetGCPercent(prev)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got != gc {
+			t.Errorf("GOGC %d before Approx, %d after", gc, got)
 		}
 	}
 }

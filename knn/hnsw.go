@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math/rand"
 	"runtime"
+	"runtime/debug"
 	"sync"
 	"time"
 
@@ -12,43 +13,44 @@ import (
 	"nightjar/ingest"
 )
 
-// Approximate neighbours: candidates from HNSW indexes (Malkov & Yashunin
-// 2018) built with github.com/coder/hnsw, then NN-descent refinement
-// (descent.go).
+// Approximate neighbours: starting lists from an HNSW index (Malkov &
+// Yashunin 2018) built with github.com/coder/hnsw on a bounded sample of the
+// rows, then NN-descent refinement (descent.go).
 //
 // What the library lacks, and what this file adds by hand:
-//   - Graph.Add is single-threaded: we build Shards independent indexes over
-//     interleaved shards of rows concurrently and every query searches every
-//     shard, merging the lists. (Searching only a row's own shard and leaving
-//     NN-descent to cross shards through a few random entries was measured
-//     and rejected: recall 0.62 after two passes at 100,000 rows, against
-//     0.997.)
+//   - Graph.Add is single-threaded and the index holds about 1 KB per row
+//     (M = 16) besides the garbage its searches leave: an index over all rows
+//     peaked at 5.5 GB at 1,000,000 rows. We index a random sample of at most
+//     IndexRows rows (20,000 by default, about 3 s to build on one core) and
+//     query every row against it; the index is dropped before refinement.
 //   - Its search is greedy and stops at the first expansion that does not
-//     improve the best distance (EfSearch barely matters), so raw recall at
-//     k = 90 is low (0.39 at 100,000 clustered rows): NN-descent repairs it.
-//   - A search can return fewer results than asked: short lists are filled
-//     with random distinct rows so that every row enters refinement with
-//     exactly k neighbours.
+//     improve the best distance, and its result heap takes the last array
+//     element of a binary min-heap for the worst result, so the results are
+//     neither the nearest nor complete (raw recall@90 of an index over all
+//     100,000 demo rows: 0.17). Worse, lists made only of such results are a
+//     poor start for NN-descent, which needs the lists to reach across the
+//     data: from that start three passes reached 0.69 where a random start
+//     reaches 0.9998. We keep only the Ask (k/3 by default) nearest results
+//     and fill the list with random rows, which gives NN-descent both local
+//     candidates and the random links it relies on.
+//   - A search can return fewer results than asked; the random filling covers
+//     that too, so every row enters refinement with exactly k neighbours.
 //   - Its structure depends on Go map iteration order (entry point of a
-//     layer, neighbour replenishing), which Go randomises: the candidate
-//     graph, hence Approx's result, can differ from run to run at the level
+//     layer, neighbour replenishing), which Go randomises: the starting
+//     lists, hence Approx's result, can differ from run to run at the level
 //     of a few entries. Refine itself is deterministic.
 //
-// Measured cost (k = 90, 2 threads, CPU seconds; see DefaultApprox and the
-// benchmarks): at 100,000 clustered 50-d rows the HNSW phase took 77 s for a
-// raw recall of 0.39 and each NN-descent pass about 26 s; Descent (random
-// start, no index) reached 0.9998 in 3 passes for 92 s in all, against 129 s
-// for 0.997 by Approx with 2 passes. On 20,000 MNIST rows: Approx 26 s + 2
-// passes → 0.968; Descent 2 passes → 0.990 in 67 s. At 1,000,000 clustered
-// rows: HNSW phase 1,563 s for raw recall 0.13, then 3 passes → 0.977
-// (2,390 s in all, peak RSS 5.5 GB); Descent 4 passes → 0.9956 in 1,233 s,
-// peak RSS 1.7 GB. The index holds about 1 KB per row (M = 16) and its
-// searches produce much garbage, hence the RSS.
+// Measured cost (k = 90, demo scenario, 2 threads; the machine was shared
+// with other CPU-heavy jobs, so seconds are rough): MEASURED_COST
 //
 // Concurrent queries: (*hnsw.Graph).Search only reads the layers (map reads,
 // which Go allows concurrently), allocates its heaps and visited set per
 // call, and calls our pure distance function; it does not touch the Rng.
 // It is therefore safe from many goroutines once all Adds have returned.
+
+// queryGCPercent is the GOGC value Approx sets while it builds and queries
+// the index (see Approx).
+const queryGCPercent = 20
 
 // ApproxOptions configures Approx and Refine. The zero value of a field means
 // "use the default" of DefaultApprox, except MaxPasses where 0 means no
@@ -81,17 +83,19 @@ type ApproxOptions struct {
 	// Seed drives every random choice (HNSW levels, filling, sampling).
 	Seed uint64
 	// PhaseProgress, if not nil, is called with the phase name ("build",
-	// "query", "refine 1", "refine 2", …) and rows done out of total.
+	// "query", "refine 1", "refine 2", …) and rows done out of total (for
+	// "build", the index rows).
 	PhaseProgress func(phase string, done, total int64)
 }
 
 // DefaultApprox returns the default options for n rows and k neighbours.
-// Measured at k = 90 with 2 threads (2 shards), recall on a sample against the
-// exact search: clustered 50-d rows, N = 100,000: HNSW candidates 0.39, after
-// 1, 2, 3 passes 0.92, 0.997, 0.9999; MNIST (784-d), N = 20,000: 0.40, then
-// 0.82, 0.968, 0.994. Two passes are the cheapest setting above 0.95; the
-// default allows three, and Delta stops earlier on easy data. M = 16 is the
-// library's own default; ρ = 0.5 follows Dong et al. 2011 (their
+// Measured at k = 90 on the 100,000-row demo scenario, recall@90 on a
+// 1,000-row sample against the exact search, index on 20,000 rows: starting
+// lists of k/3 index results + random rows 0.08, after 1, 2, 3 passes 0.31,
+// 0.945, 1.000; keeping 60 or 90 index results gave 0.944 and 0.951 after two
+// passes, an index on 50,000 rows 0.967, for more build and query time. The
+// default allows three passes, and Delta stops earlier on easy data. M = 16
+// is the library's own default; ρ = 0.5 follows Dong et al. 2011 (their
 // recommended trade-off, from memory). Threads and Metric are left zero
 // (all cores, Euclidean); n is accepted for future size-dependent choices.
 func DefaultApprox(n, k int) ApproxOptions {
@@ -159,8 +163,11 @@ func checkInput(x ingest.Matrix, k int) error {
 }
 
 // Approx returns an approximate k-nearest-neighbour graph of the rows of x:
-// HNSW candidates (opt.Ask per query from each of opt.Shards indexes), short
-// lists filled with random rows, then NN-descent refinement (Refine). Dist2
+// HNSW indexes (opt.Shards of them) over a random sample of at most
+// opt.IndexRows rows, every row's starting list made of the opt.Ask nearest
+// index results and random rows up to k, then NN-descent refinement (Refine).
+// Memory beyond the graph (8·N·k bytes) and the refinement's work arrays is
+// about 1 KB per index row. Dist2
 // holds squared Euclidean distances (of the normalised rows for Cosine).
 // It needs 1 ≤ k ≤ x.N−1 and len(x.Data) == x.N·x.D. The HNSW phase is not
 // bit-reproducible (see the file comment); the refinement is, for any Threads.
@@ -176,17 +183,24 @@ func Approx(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, err
 	}
 	n := x.N
 
-	// The index rows: a random sample of at most IndexRows rows, in
-	// increasing order, cut into Shards interleaved parts.
-	sample := make([]int32, 0, min(n, opt.IndexRows))
-	if n <= opt.IndexRows {
-		for i := 0; i < n; i++ {
-			sample = append(sample, int32(i))
-		}
-	} else {
-		sample = SampleRows(n, opt.IndexRows, opt.Seed^0x5a3c)
-	}
+	// The index rows: a random sample of at most IndexRows rows (all rows if
+	// N ≤ IndexRows), in increasing order, cut into Shards interleaved parts.
+	sample := SampleRows(n, opt.IndexRows, opt.Seed^0x5a3c)
 	shardsN := max(1, min(opt.Shards, len(sample)/(2*(opt.Ask+1))))
+
+	// The library's searches leave about 20 KB of garbage per query (visited
+	// sets, heaps, key slices); with the default GOGC = 100 the heap would grow
+	// to twice the live graph before each collection (1.9 GB resident at
+	// 1,000,000 rows). Collect more often while building and querying: the
+	// live heap is mostly pointer-free arrays, so a collection is cheap. A
+	// stricter setting of the caller (or GC off) is kept, and the caller's
+	// setting is restored before the refinement, which makes little garbage.
+	oldGC := debug.SetGCPercent(queryGCPercent)
+	if oldGC < queryGCPercent {
+		debug.SetGCPercent(oldGC)
+	}
+	restoreGC := sync.OnceFunc(func() { debug.SetGCPercent(oldGC) })
+	defer restoreGC()
 
 	// Build: shards concurrently, each single-threaded inside the library.
 	t0 := time.Now()
@@ -281,6 +295,7 @@ func Approx(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, err
 	st.QuerySeconds = time.Since(t0).Seconds()
 	shards = nil // drop the indexes before refinement
 	runtime.GC()
+	restoreGC()
 
 	rs, err := refineRows(g, rows, opt)
 	st.Passes, st.PassSeconds, st.Updates = rs.Passes, rs.PassSeconds, rs.Updates
