@@ -12,6 +12,7 @@ import (
 
 	"nightjar/bench"
 	"nightjar/checkpoint"
+	"nightjar/gradient"
 	"nightjar/ingest"
 )
 
@@ -235,5 +236,34 @@ func TestEmbedForeignParquet(t *testing.T) {
 	}
 	if f := readReport(t, runDir)["features"].(float64); f != 7 {
 		t.Errorf("features = %v, want the 7 numeric columns (the boolean is not numeric)", f)
+	}
+}
+
+// TestEmbedAboveExactKL crosses gradient.ExactLimit, where the pipeline
+// hands P to the optimiser and keeps no copy: the report then takes the
+// optimiser's KL, and the peak memory is recorded after every phase.
+func TestEmbedAboveExactKL(t *testing.T) {
+	dir := t.TempDir()
+	n := gradient.ExactLimit + 50
+	in := writeDemoTable(t, dir, n)
+	runDir := filepath.Join(dir, "run")
+	code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--label", "population",
+		"--iterations", "30", "--early-iterations", "10", "--quiet", "--score-sample", "200")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	rep := readReport(t, runDir)
+	q := rep["quality"].(map[string]any)
+	if m, _ := q["kl_method"].(string); !strings.Contains(m, "optimiser") {
+		t.Errorf("kl_method = %q, want the optimiser's", m)
+	}
+	if _, ok := q["centroid_rank"].(float64); !ok {
+		t.Errorf("no centroid_rank in %v", q)
+	}
+	mem := rep["peak_memory_bytes_after"].(map[string]any)
+	for _, phase := range []string{"read", "neighbours", "affinities", "optimiser", "outputs", "scores"} {
+		if v, ok := mem[phase].(float64); !ok || v <= 0 {
+			t.Errorf("peak memory after %s: %v", phase, mem[phase])
+		}
 	}
 }

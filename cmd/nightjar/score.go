@@ -157,7 +157,7 @@ func labelStrings(c *ingest.Column) []string {
 // sum, else the optimiser's value from its last iteration (Z from the
 // repulsion approximation).
 func finalKL(P gradient.Affinities, y []float64, s settings, optKL float64) (float64, string) {
-	if P.N <= gradient.ExactLimit {
+	if P.N > 0 && P.N <= gradient.ExactLimit { // the pipeline keeps P only that small
 		return gradient.KLExact(P, y, s.Dims, s.Dof), "exact"
 	}
 	return optKL, "optimiser, last iteration (Z from the approximate repulsion)"
