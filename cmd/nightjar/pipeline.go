@@ -391,7 +391,6 @@ func (j *job) optimise(pp *gradient.Affinities) ([]float64, error) {
 		return nil, err
 	}
 	*pp = gradient.Affinities{}
-	y0 = nil
 	runtime.GC() // P as loaded or built is garbage now: reclaim it before it can stack up
 	if restored != nil {
 		if err := opt.Restore(*restored); err != nil {
