@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"os"
 	"os/signal"
 	"runtime"
@@ -318,10 +319,10 @@ func (j *job) restorePhaseReport(secs []checkpoint.Section) {
 // loadGraph reads the neighbour graph saved by an earlier invocation; nil when
 // absent or unusable (then it is recomputed).
 func (j *job) loadGraph(k int) *knn.Graph {
-	if _, err := os.Stat(j.run.Path(fileGraph)); err != nil {
+	secs, err := j.run.LoadArtifact(fileGraph, "graph")
+	if errors.Is(err, fs.ErrNotExist) {
 		return nil
 	}
-	secs, err := j.run.LoadArtifact(fileGraph, "graph")
 	if err == nil {
 		var g *knn.Graph
 		if g, err = graphFromSections(secs, j.table.N, k); err == nil {
@@ -335,10 +336,10 @@ func (j *job) loadGraph(k int) *knn.Graph {
 
 // loadP reads P saved by an earlier invocation; false when absent or unusable.
 func (j *job) loadP() (gradient.Affinities, bool) {
-	if _, err := os.Stat(j.run.Path(fileP)); err != nil {
+	secs, err := j.run.LoadArtifact(fileP, "affinity")
+	if errors.Is(err, fs.ErrNotExist) {
 		return gradient.Affinities{}, false
 	}
-	secs, err := j.run.LoadArtifact(fileP, "affinity")
 	if err == nil {
 		var P *knn.CSR
 		if P, err = csrFromSections(secs, j.table.N); err == nil {

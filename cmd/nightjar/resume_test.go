@@ -162,9 +162,13 @@ func TestTermWritesCheckpoint(t *testing.T) {
 	if code != 0 {
 		t.Errorf("status: %d %s", code, errs)
 	}
-	out, err := exec.Command(binary, "resume", runDir, "--quiet", "--score-sample", "0").CombinedOutput()
+	out, err := exec.Command(binary, "resume", runDir, "--score-sample", "0").CombinedOutput()
 	if err != nil {
 		t.Fatalf("resume: %v\n%s", err, out)
+	}
+	// The saved P is used, not recomputed (the bits would agree either way).
+	if !strings.Contains(string(out), "affinities loaded from") || strings.Contains(string(out), "neighbours: exact") {
+		t.Errorf("resume recomputed the neighbours or affinities:\n%s", out)
 	}
 	got, _ := os.ReadFile(filepath.Join(runDir, fileEmbedding))
 	if !bytes.Equal(got, want) {
