@@ -40,13 +40,38 @@ import (
 //     lists, hence Approx's result, can differ from run to run at the level
 //     of a few entries. Refine itself is deterministic.
 //
-// Measured cost (k = 90, demo scenario, 2 threads; the machine was shared
-// with other CPU-heavy jobs, so seconds are rough): MEASURED_COST
+// Measured cost (k = 90, 2 threads, default options; recall@90 on 1,000
+// sampled rows against the exact search). The machine was shared with other
+// CPU-heavy jobs (load 6–9 on 2 cores), so seconds are wall times inflated
+// several-fold and only the recalls and memory are firm:
+//
+//	data                      build  query  3 passes  recall   peak RSS
+//	demo 100,000 × 50           16 s   49 s     300 s  0.99994  0.35 GB
+//	MNIST 70,000 × 784          33 s   49 s     674 s  0.9964   1.08 GB
+//	MNIST 70,000, PCA to 50     21 s   30 s     157 s  0.9981   1.08 GB
+//	demo 1,000,000 × 50          8 s  317 s   1,765 s  0.917    2.06 GB
+//
+// Peak RSS is the whole command's (table, graph, affinities), except at
+// 1,000,000 rows where it is the peak up to the saving of the graph (the
+// later phases reach 2.96 GB); that run still had GOGC = 100 while querying
+// (1.99 GB during the query, 1.87 GB during refinement) and three passes,
+// too few at that size: DefaultApprox now allows four above 200,000 rows. The index over
+// all rows that this replaced peaked at 0.54 GB at 100,000 rows and 5.5 GB at
+// 1,000,000 (build 1,563 s, raw recall 0.13). Descent (random start, no
+// index) on the same data: 0.9998 at 100,000 rows (3 passes, 44.6 s with 2
+// threads against 90.6 s with 1, measured at load ≈ 2.5), 0.9967 on raw MNIST
+// and 0.9985 after PCA to 50. The index start did not save a pass (both need
+// three at 100,000 rows) and costs the build and query, one reason why
+// --neighbours auto uses Descent (the other: Descent repeats bit for bit).
 //
 // Concurrent queries: (*hnsw.Graph).Search only reads the layers (map reads,
 // which Go allows concurrently), allocates its heaps and visited set per
 // call, and calls our pure distance function; it does not touch the Rng.
 // It is therefore safe from many goroutines once all Adds have returned.
+
+// manyRows is the table size above which DefaultApprox allows a fourth
+// NN-descent pass.
+const manyRows = 200_000
 
 // queryGCPercent is the GOGC value Approx sets while it builds and queries
 // the index (see Approx).
@@ -94,17 +119,23 @@ type ApproxOptions struct {
 // lists of k/3 index results + random rows 0.08, after 1, 2, 3 passes 0.31,
 // 0.945, 1.000; keeping 60 or 90 index results gave 0.944 and 0.951 after two
 // passes, an index on 50,000 rows 0.967, for more build and query time. The
-// default allows three passes, and Delta stops earlier on easy data. M = 16
-// is the library's own default; ρ = 0.5 follows Dong et al. 2011 (their
-// recommended trade-off, from memory). Threads and Metric are left zero
-// (all cores, Euclidean); n is accepted for future size-dependent choices.
+// default allows three passes up to manyRows rows and four above, and Delta
+// stops earlier on easy data: at 1,000,000 demo rows three passes reached
+// only 0.917 from the index start and 0.953 from a random start (Descent),
+// four passes 0.9956 from a random start. M = 16 is the library's own
+// default; ρ = 0.5 follows Dong et al. 2011 (their recommended trade-off,
+// from memory). Threads and Metric are left zero (all cores, Euclidean).
 func DefaultApprox(n, k int) ApproxOptions {
+	passes := 3
+	if n > manyRows {
+		passes = 4
+	}
 	return ApproxOptions{
 		M:         16,
 		IndexRows: 20_000,
 		Ask:       max(1, k/3),
 		Shards:    1,
-		MaxPasses: 3,
+		MaxPasses: passes,
 		Sample:    0.5,
 		Delta:     0.001,
 		Seed:      1,
@@ -167,7 +198,10 @@ func checkInput(x ingest.Matrix, k int) error {
 // opt.IndexRows rows, every row's starting list made of the opt.Ask nearest
 // index results and random rows up to k, then NN-descent refinement (Refine).
 // Memory beyond the graph (8·N·k bytes) and the refinement's work arrays is
-// about 1 KB per index row. Dist2
+// about 1 KB per index row. While it builds and queries, Approx lowers the
+// process-wide GOGC to 20 (runtime/debug.SetGCPercent) unless it is already
+// lower, and restores it afterwards; calls overlapping in time may therefore
+// leave the lowered value in place. Dist2
 // holds squared Euclidean distances (of the normalised rows for Cosine).
 // It needs 1 ≤ k ≤ x.N−1 and len(x.Data) == x.N·x.D. The HNSW phase is not
 // bit-reproducible (see the file comment); the refinement is, for any Threads.
