@@ -153,7 +153,7 @@ func addSettingsFlags(fs *flag.FlagSet, s *settings) {
 	fs.IntVar(&s.Dims, "dims", s.Dims, "dimensions of the map: 2 or 3")
 	fs.Float64Var(&s.Perplexity, "perplexity", s.Perplexity, "effective number of neighbours each row keeps (needs at least 3·perplexity+1 rows)")
 	fs.IntVar(&s.Reduce, "reduce", s.Reduce, "project the features onto their first N principal components while reading, in two streamed passes (for wide tables; 0 = off)")
-	fs.StringVar(&s.Neighbours, "neighbours", s.Neighbours, "neighbour search: exact; descent (NN-descent from random lists, repeatable bit for bit); hnsw (HNSW candidates refined by NN-descent; not bit-repeatable); auto = exact up to 50,000 rows, else descent")
+	fs.StringVar(&s.Neighbours, "neighbours", s.Neighbours, "neighbour search: exact; descent (NN-descent from random lists, repeatable bit for bit); hnsw (an HNSW index on a sample of rows gives starting candidates, refined by NN-descent; not bit-repeatable); auto = exact up to 50,000 rows, else descent")
 	fs.StringVar(&s.Metric, "metric", s.Metric, "distance between rows: euclidean or cosine")
 	fs.IntVar(&s.CheckRecall, "check-recall", s.CheckRecall, "rows sampled to measure the recall of approximate neighbours (0 = off)")
 	fs.IntVar(&s.Iterations, "iterations", s.Iterations, "optimiser iterations in all, early exaggeration included")
