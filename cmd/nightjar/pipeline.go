@@ -40,8 +40,8 @@ const (
 //
 // Auto prefers NN-descent to an HNSW start + NN-descent because the HNSW
 // start saves no refinement pass (measured: demo 100,000 rows, recall 0.9998
-// for both, 110 s against 42–89 s; at 1,000,000 rows with 3 passes the HNSW
-// start reached 0.917 against 0.953 from random lists), and because its
+// for both after 3 passes; at 1,000,000 rows with 3 passes the HNSW start
+// reached 0.917 against 0.953 from random lists), and because its
 // result is the same bits on every run; the HNSW library's index depends on
 // Go's randomised map order, so "hnsw" runs do not repeat bit for bit.
 const autoExactRows = 50000
