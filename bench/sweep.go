@@ -89,7 +89,8 @@ func WriteMarkdown(w io.Writer, meta Meta, keys []string, rs []Result) error {
 		fmt.Fprintf(&b, "Command: `%s`\n", meta.Command)
 	}
 	fmt.Fprintf(&b, "Scores on a sample of rows, k = %d for trustworthiness, continuity and preservation; label accuracy is leave-one-out 10-NN.\n\n", meta.K)
-	head := append(append([]string{}, keys...), "wall s", "neighbours s", "optimiser s", "peak MiB", "recall", "trust", "contin.", "preserv.", "label acc map", "label acc input", "KL", "error")
+	head := append(append([]string{}, keys...), "wall s", "neighbours s", "optimiser s", "peak MiB", "recall", "trust", "contin.", "preserv.", "label acc map", "label acc input", "KL",
+		"s per iteration", "affinities s", "centroid τ", "error")
 	b.WriteString("| " + strings.Join(head, " | ") + " |\n|")
 	for range head {
 		b.WriteString(" --- |")
