@@ -2,8 +2,6 @@ package knn_test
 
 import (
 	"fmt"
-	"math"
-	"math/rand/v2"
 	"runtime"
 	"sync"
 	"testing"
@@ -21,27 +19,10 @@ import (
 //
 //	go test ./knn/ -run '^$' -bench Approx -benchtime 1x -timeout 2h
 
-// clusteredRows is the invented benchmark scenario: n rows in 50 columns around
-// 40 centres, column j scaled by 1/√(j+1) (decaying variance, like the leading
-// principal components of a feature table), cluster c with spread
-// 0.5+0.25·(c mod 4).
-func clusteredRows(n int, seed uint64) ingest.Matrix {
-	const d, clusters = 50, 40
-	r := rand.New(rand.NewPCG(seed, 77))
-	cent := make([]float64, clusters*d)
-	for i := range cent {
-		cent[i] = 3 * r.NormFloat64() / math.Sqrt(float64(i%d+1))
-	}
-	x := ingest.Matrix{N: n, D: d, Data: make([]float32, n*d)}
-	for i := 0; i < n; i++ {
-		c := r.IntN(clusters)
-		w := 0.5 + 0.25*float64(c%4)
-		for j := 0; j < d; j++ {
-			x.Data[i*d+j] = float32(cent[c*d+j] + w*r.NormFloat64()/math.Sqrt(float64(j+1)))
-		}
-	}
-	return x
-}
+// The benchmark scenario is knn.ClusteredRows (export_test.go): n invented
+// rows in 50 columns around 40 centres, column j scaled by 1/√(j+1)
+// (decaying variance, like the leading principal components of a feature
+// table), cluster c with spread 0.5+0.25·(c mod 4).
 
 var (
 	mnistOnce sync.Once
@@ -115,7 +96,7 @@ func BenchmarkApprox(b *testing.B) {
 	for _, m := range methods {
 		for _, n := range []int{20_000, 100_000} {
 			b.Run(fmt.Sprintf("%s/clustered-%d", m.name, n), func(b *testing.B) {
-				x := clusteredRows(n, 7)
+				x := knn.ClusteredRows(n, 7)
 				opt := knn.DefaultApprox(n, k)
 				opt.MaxPasses = m.passes
 				benchApprox(b, m.build, x, k, opt)
@@ -135,7 +116,7 @@ func BenchmarkApprox(b *testing.B) {
 // follow Threads by default).
 func BenchmarkApproxThreads(b *testing.B) {
 	const n, k = 50_000, 90
-	x := clusteredRows(n, 7)
+	x := knn.ClusteredRows(n, 7)
 	for _, threads := range []int{1, 2} {
 		b.Run(fmt.Sprintf("threads-%d", threads), func(b *testing.B) {
 			opt := knn.DefaultApprox(n, k)
@@ -151,7 +132,7 @@ func BenchmarkApproxExactEstimate(b *testing.B) {
 	const k = 90
 	for _, n := range []int{100_000, 1_000_000} {
 		b.Run(fmt.Sprintf("clustered-%d", n), func(b *testing.B) {
-			x := clusteredRows(n, 7)
+			x := knn.ClusteredRows(n, 7)
 			rows := knn.SampleRows(n, 10_000, 1)
 			var sec float64
 			for i := 0; i < b.N; i++ {
