@@ -41,17 +41,10 @@ func graphFromSections(secs []checkpoint.Section, n, k int) (*knn.Graph, error) 
 		return nil, fmt.Errorf("neighbour graph was made for another table or k (shape %v, want [%d %d])", shape, n, k)
 	}
 	g := &knn.Graph{N: n, K: k}
-	b, err := checkpoint.Lookup(secs, "index")
-	if err != nil {
+	if g.Index, err = decoded(secs, "index", checkpoint.BytesInt32); err != nil {
 		return nil, err
 	}
-	if g.Index, err = checkpoint.BytesInt32(b); err != nil {
-		return nil, err
-	}
-	if b, err = checkpoint.Lookup(secs, "dist2"); err != nil {
-		return nil, err
-	}
-	if g.Dist2, err = checkpoint.BytesFloat32(b); err != nil {
+	if g.Dist2, err = decoded(secs, "dist2", checkpoint.BytesFloat32); err != nil {
 		return nil, err
 	}
 	if len(g.Index) != n*k || len(g.Dist2) != n*k {
@@ -79,17 +72,10 @@ func csrFromSections(secs []checkpoint.Section, n int) (*knn.CSR, error) {
 	if p.Offsets, err = int64s(secs, "offsets"); err != nil {
 		return nil, err
 	}
-	b, err := checkpoint.Lookup(secs, "cols")
-	if err != nil {
+	if p.Cols, err = decoded(secs, "cols", checkpoint.BytesInt32); err != nil {
 		return nil, err
 	}
-	if p.Cols, err = checkpoint.BytesInt32(b); err != nil {
-		return nil, err
-	}
-	if b, err = checkpoint.Lookup(secs, "vals"); err != nil {
-		return nil, err
-	}
-	if p.Vals, err = checkpoint.BytesFloat32(b); err != nil {
+	if p.Vals, err = decoded(secs, "vals", checkpoint.BytesFloat32); err != nil {
 		return nil, err
 	}
 	if len(p.Offsets) != n+1 || p.Offsets[0] != 0 || p.Offsets[n] != int64(len(p.Vals)) || len(p.Cols) != len(p.Vals) {
@@ -108,20 +94,22 @@ func csrFromSections(secs []checkpoint.Section, n int) (*knn.CSR, error) {
 	return &p, nil
 }
 
-func int64s(secs []checkpoint.Section, name string) ([]int64, error) {
+// decoded looks up section name and decodes it with decode (one of the
+// checkpoint.BytesX functions).
+func decoded[T any](secs []checkpoint.Section, name string, decode func([]byte) ([]T, error)) ([]T, error) {
 	b, err := checkpoint.Lookup(secs, name)
 	if err != nil {
 		return nil, err
 	}
-	return checkpoint.BytesInt64(b)
+	return decode(b)
+}
+
+func int64s(secs []checkpoint.Section, name string) ([]int64, error) {
+	return decoded(secs, name, checkpoint.BytesInt64)
 }
 
 func float64s(secs []checkpoint.Section, name string) ([]float64, error) {
-	b, err := checkpoint.Lookup(secs, name)
-	if err != nil {
-		return nil, err
-	}
-	return checkpoint.BytesFloat64(b)
+	return decoded(secs, name, checkpoint.BytesFloat64)
 }
 
 // stateSections stores the optimiser state. The optimiser itself draws no
