@@ -201,8 +201,8 @@ func checkInput(x ingest.Matrix, k int) error {
 // about 1 KB per index row. While it builds and queries, Approx lowers the
 // process-wide GOGC to 20 (runtime/debug.SetGCPercent) unless it is already
 // lower, and restores it afterwards; calls overlapping in time may therefore
-// leave the lowered value in place. Dist2
-// holds squared Euclidean distances (of the normalised rows for Cosine).
+// leave the lowered value in place. Dist2 holds squared Euclidean
+// distances (of the normalised rows for Cosine).
 // It needs 1 ≤ k ≤ x.N−1 and len(x.Data) == x.N·x.D. The HNSW phase is not
 // bit-reproducible (see the file comment); the refinement is, for any Threads.
 func Approx(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, error) {
@@ -383,9 +383,9 @@ func refineRows(g *Graph, rows ingest.Matrix, opt ApproxOptions) (ApproxStats, e
 // NN-descent alone, started from k distinct random rows per row (the starting
 // point of Dong, Charikar & Li 2011) instead of HNSW candidates. Unlike Approx
 // it is bit-reproducible: the same x, k, opt.Seed and options give the same
-// graph for any opt.Threads. opt.M, opt.Ask and opt.Shards are ignored;
-// opt.MaxPasses should allow one or two passes more than after HNSW
-// candidates (see the package benchmarks). Preconditions as for Approx.
+// graph for any opt.Threads. opt.M, opt.Ask, opt.Shards and opt.IndexRows
+// are ignored; measured, it needs no more passes than Approx for the same
+// recall (see the file comment). Preconditions as for Approx.
 func Descent(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, error) {
 	var st ApproxStats
 	if err := checkInput(x, k); err != nil {
