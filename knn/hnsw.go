@@ -40,38 +40,30 @@ import (
 //     lists, hence Approx's result, can differ from run to run at the level
 //     of a few entries. Refine itself is deterministic.
 //
-// Measured cost (k = 90, 2 threads, default options; recall@90 on 1,000
-// sampled rows against the exact search). The machine was shared with other
-// CPU-heavy jobs (load 6–9 on 2 cores), so seconds are wall times inflated
-// several-fold and only the recalls and memory are firm:
+// Measured cost (k = 90, 2 threads, default options, idle machine; recall@90
+// against the exact search on 1,000 sampled rows, 10,000 at 1,000,000 rows;
+// peak RSS of the whole process at the end of the neighbour phase):
 //
-//	data                      build  query  3 passes  recall   peak RSS
-//	demo 100,000 × 50           16 s   49 s     300 s  0.99994  0.35 GB
-//	MNIST 70,000 × 784          33 s   49 s     674 s  0.9964   1.08 GB
-//	MNIST 70,000, PCA to 50     21 s   30 s     157 s  0.9981   1.08 GB
-//	demo 1,000,000 × 50          8 s  317 s   1,765 s  0.917    2.06 GB
+//	data                      build  query  passes        recall   peak RSS
+//	demo 100,000 × 50          2.3 s  4.6 s  3 in 32 s     0.99996  0.25 GB
+//	MNIST 70,000 × 784         8.4 s  8.4 s  3 in 155 s    0.9965   1.11 GB
+//	MNIST 70,000, PCA to 50    2.4 s  3.1 s  3 in 21 s     0.9980   1.10 GB
+//	demo 1,000,000 × 50        3.0 s   87 s  4 in 464 s    0.9995   2.04 GB
 //
-// Peak RSS is the whole command's (table, graph, affinities), except at
-// 1,000,000 rows where it is the peak up to the saving of the graph (the
-// later phases reach 2.96 GB); that run still had GOGC = 100 while querying
-// (1.99 GB during the query, 1.87 GB during refinement) and three passes,
-// too few at that size: DefaultApprox now allows four above 200,000 rows. The index over
-// all rows that this replaced peaked at 0.54 GB at 100,000 rows and 5.5 GB at
-// 1,000,000 (build 1,563 s, raw recall 0.13). Descent (random start, no
-// index) on the same data: 0.9998 at 100,000 rows (3 passes, 44.6 s with 2
-// threads against 90.6 s with 1, measured at load ≈ 2.5), 0.9967 on raw MNIST
-// and 0.9985 after PCA to 50. The index start did not save a pass (both need
-// three at 100,000 rows) and costs the build and query, one reason why
-// --neighbours auto uses Descent (the other: Descent repeats bit for bit).
+// Each ran passes until the estimated recall reached the goal of 0.99 (the
+// per-pass estimates of the 1,000,000-row run were not recorded: a bug, since
+// fixed, dropped them from Approx's stats). The index over all rows that
+// the sampled index replaced peaked at 0.54 GB at 100,000 rows and 5.5 GB at
+// 1,000,000 (build 1,563 s, raw recall 0.13). Descent (random projection
+// trees, no index) reaches the same recall sooner: demo 100,000 rows 0.9986
+// in 12 s (one pass), 1,000,000 rows 0.99996 in 281 s (two passes), MNIST
+// raw 0.9984 in 112 s, after PCA to 50 0.9987 in 19 s. That, and Descent
+// repeating bit for bit, is why --neighbours auto uses Descent.
 //
 // Concurrent queries: (*hnsw.Graph).Search only reads the layers (map reads,
 // which Go allows concurrently), allocates its heaps and visited set per
 // call, and calls our pure distance function; it does not touch the Rng.
 // It is therefore safe from many goroutines once all Adds have returned.
-
-// manyRows is the table size above which DefaultApprox allows a fourth
-// NN-descent pass.
-const manyRows = 200_000
 
 // queryGCPercent is the GOGC value Approx sets while it builds and queries
 // the index (see Approx).
@@ -99,12 +91,27 @@ type ApproxOptions struct {
 	Shards int
 	// MaxPasses caps the NN-descent passes.
 	MaxPasses int
+	// Trees is the number of random projection trees whose leaves give
+	// Descent its starting lists (Dasgupta & Freund 2008); < 0 starts from
+	// random rows instead. Approx ignores it.
+	Trees int
+	// LeafRows bounds the rows in a tree's leaf; it is raised to k+1 at
+	// least, so that a leaf can fill a list.
+	LeafRows int
 	// Sample is the NN-descent sampling rate ρ in (0, 1] (Dong et al. 2011):
 	// each pass joins up to ⌈ρk⌉ new and ⌈ρk⌉ old neighbours of a row, and as
 	// many of each kind of reverse neighbour.
 	Sample float64
 	// Delta stops refinement when a pass updates fewer than Delta·N·k entries.
 	Delta float64
+	// StopRecall stops refinement once the recall@k of the graph, estimated
+	// before the first pass and after each pass on StopRows sampled rows
+	// against the exact search, reaches it; > 1 never stops on it. The
+	// sample is drawn apart from any later check (its own seed) and costs
+	// StopRows·N·D once.
+	StopRecall float64
+	// StopRows is the size of that sample (capped at N).
+	StopRows int
 	// Seed drives every random choice (HNSW levels, filling, sampling).
 	Seed uint64
 	// PhaseProgress, if not nil, is called with the phase name ("build",
@@ -114,31 +121,41 @@ type ApproxOptions struct {
 }
 
 // DefaultApprox returns the default options for n rows and k neighbours.
-// Measured at k = 90 on the 100,000-row demo scenario, recall@90 on a
-// 1,000-row sample against the exact search, index on 20,000 rows: starting
-// lists of k/3 index results + random rows 0.08, after 1, 2, 3 passes 0.31,
-// 0.945, 1.000; keeping 60 or 90 index results gave 0.944 and 0.951 after two
-// passes, an index on 50,000 rows 0.967, for more build and query time. The
-// default allows three passes up to manyRows rows and four above, and Delta
-// stops earlier on easy data: at 1,000,000 demo rows three passes reached
-// only 0.917 from the index start and 0.953 from a random start (Descent),
-// four passes 0.9956 from a random start. M = 16 is the library's own
-// default; ρ = 0.5 follows Dong et al. 2011 (their recommended trade-off,
-// from memory). Threads and Metric are left zero (all cores, Euclidean).
+//
+// The HNSW start (Approx), measured at k = 90 on the 100,000-row demo
+// scenario, recall@90 on a 1,000-row sample against the exact search, index
+// on 20,000 rows: starting lists of k/3 index results + random rows 0.08,
+// after 1, 2, 3 passes 0.31, 0.945, 1.000; keeping 60 or 90 index results
+// gave 0.944 and 0.951 after two passes, an index on 50,000 rows 0.967, for
+// more build and query time. M = 16 is the library's own default.
+//
+// The tree start (Descent), 8 trees of at most 2k rows: on the invented
+// clustered rows of the tests at 100,000 rows, start recall 0.55 with 4
+// trees, 0.78 with 8, 0.88 with 12, and after one pass 0.987, 0.998, 0.999;
+// 8 trees with leaves of 128 or 6 of 256 rows did no better. On the
+// 1,000,000-row demo scenario: 0.633 at the start, 0.9875 after one pass,
+// 1.0000 after two (recall@90 on 10,000 rows: 0.99996).
+//
+// Refinement: ρ = 0.5 follows Dong et al. 2011 (their recommended trade-off,
+// from memory). It stops at an estimated recall of 0.99 on 300 rows, a
+// fixed pass count being either too few for large tables (three passes from
+// random lists reached 0.953 at 1,000,000 rows) or wasted on easy ones;
+// MaxPasses = 6 only bounds hard cases. Threads and Metric are left zero
+// (all cores, Euclidean).
 func DefaultApprox(n, k int) ApproxOptions {
-	passes := 3
-	if n > manyRows {
-		passes = 4
-	}
 	return ApproxOptions{
-		M:         16,
-		IndexRows: 20_000,
-		Ask:       max(1, k/3),
-		Shards:    1,
-		MaxPasses: passes,
-		Sample:    0.5,
-		Delta:     0.001,
-		Seed:      1,
+		M:          16,
+		IndexRows:  20_000,
+		Ask:        max(1, k/3),
+		Shards:     1,
+		MaxPasses:  6,
+		Trees:      8,
+		LeafRows:   2 * k,
+		Sample:     0.5,
+		Delta:      0.001,
+		StopRecall: 0.99,
+		StopRows:   300,
+		Seed:       1,
 	}
 }
 
@@ -148,6 +165,11 @@ type ApproxStats struct {
 	Passes                     int       // NN-descent passes run
 	PassSeconds                []float64 // per pass
 	Updates                    []int64   // list entries changed per pass
+	// PassRecall is the recall estimated on the StopRows sample before the
+	// first pass and after each pass run (empty when StopRecall > 1 or
+	// MaxPasses is 0); ProbeSeconds is the time of its exact search.
+	PassRecall   []float64
+	ProbeSeconds float64
 }
 
 func (o *ApproxOptions) resolve(n, k int) {
@@ -162,6 +184,13 @@ func (o *ApproxOptions) resolve(n, k int) {
 	if o.Ask <= 0 {
 		o.Ask = def.Ask
 	}
+	if o.Trees == 0 {
+		o.Trees = def.Trees
+	}
+	if o.LeafRows <= 0 {
+		o.LeafRows = def.LeafRows
+	}
+	o.LeafRows = max(o.LeafRows, k+1)
 	o.Ask = min(o.Ask, k)
 	if o.Shards <= 0 {
 		o.Shards = 1
@@ -171,6 +200,12 @@ func (o *ApproxOptions) resolve(n, k int) {
 	}
 	if o.Delta <= 0 {
 		o.Delta = def.Delta
+	}
+	if o.StopRecall <= 0 {
+		o.StopRecall = def.StopRecall
+	}
+	if o.StopRows <= 0 {
+		o.StopRows = def.StopRows
 	}
 }
 
@@ -281,6 +316,7 @@ func Approx(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, err
 		cand := make([]int32, 0, max(k, shardsN*(opt.Ask+1)))
 		cd := make([]float32, 0, cap(cand))
 		seen := make(map[int32]struct{}, cap(cand))
+		var keys []uint64
 		for i := lo; i < hi; i++ {
 			xi := rows.Data[i*rows.D : (i+1)*rows.D]
 			cand, cd = cand[:0], cd[:0]
@@ -298,7 +334,7 @@ func Approx(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, err
 					cd = append(cd, dist2(xi, nd.Value))
 				}
 			}
-			sortRow(cand, cd)
+			keys = sortRow(cand, cd, keys)
 			if len(cand) > opt.Ask {
 				for _, j := range cand[opt.Ask:] {
 					delete(seen, j)
@@ -332,7 +368,8 @@ func Approx(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, err
 	restoreGC()
 
 	rs, err := refineRows(g, rows, opt)
-	st.Passes, st.PassSeconds, st.Updates = rs.Passes, rs.PassSeconds, rs.Updates
+	rs.BuildSeconds, rs.QuerySeconds = st.BuildSeconds, st.QuerySeconds
+	st = rs
 	if err != nil {
 		return nil, st, fmt.Errorf("approximate neighbours: %w", err)
 	}
@@ -365,27 +402,48 @@ func Refine(g *Graph, x ingest.Matrix, opt ApproxOptions) (ApproxStats, error) {
 	return refineRows(g, rows, opt)
 }
 
+// probeSeed is mixed into ApproxOptions.Seed to draw the stopping sample, so
+// that it is not the sample of a later Recall check with the same seed.
+const probeSeed = 0x7e1a5b3c9d2f4e61
+
 func refineRows(g *Graph, rows ingest.Matrix, opt ApproxOptions) (ApproxStats, error) {
 	var st ApproxStats
-	res, err := refine(g, rows, descentParams{
-		threads:   opt.Threads,
-		sample:    opt.Sample,
-		delta:     opt.Delta,
-		maxPasses: opt.MaxPasses,
-		seed:      opt.Seed,
-		progress:  opt.report,
-	})
-	st.Passes, st.PassSeconds, st.Updates = res.passes, res.seconds, res.updates
+	p := descentParams{
+		threads:    opt.Threads,
+		sample:     opt.Sample,
+		delta:      opt.Delta,
+		maxPasses:  opt.MaxPasses,
+		seed:       opt.Seed,
+		progress:   opt.report,
+		stopRecall: opt.StopRecall,
+	}
+	if opt.StopRecall <= 1 && opt.MaxPasses > 0 && g.K > 0 && g.N > g.K {
+		t0 := time.Now()
+		p.probe = SampleRows(g.N, opt.StopRows, opt.Seed^probeSeed)
+		// rows is already normalised for the metric: Euclidean order on it is
+		// the metric's order.
+		truth, _, err := ExactRows(rows, p.probe, g.K, Options{Threads: opt.Threads})
+		if err != nil {
+			return st, err
+		}
+		p.truth = truth
+		st.ProbeSeconds = time.Since(t0).Seconds()
+	}
+	res, err := refine(g, rows, p)
+	st.Passes, st.PassSeconds, st.Updates, st.PassRecall = res.passes, res.seconds, res.updates, res.recall
 	return st, err
 }
 
 // Descent returns an approximate k-nearest-neighbour graph of the rows of x by
-// NN-descent alone, started from k distinct random rows per row (the starting
-// point of Dong, Charikar & Li 2011) instead of HNSW candidates. Unlike Approx
-// it is bit-reproducible: the same x, k, opt.Seed and options give the same
-// graph for any opt.Threads. opt.M, opt.Ask, opt.Shards and opt.IndexRows
-// are ignored; measured, it needs no more passes than Approx for the same
-// recall (see the file comment). Preconditions as for Approx.
+// NN-descent, started from the leaves of opt.Trees random projection trees
+// (rptree.go) instead of HNSW candidates, or from k distinct random rows per
+// row when opt.Trees < 0 (the starting point of Dong, Charikar & Li 2011).
+// With trees it works on a copy of the rows renumbered for locality (N·D
+// float32 more memory) and maps the graph back. Unlike Approx it is
+// bit-reproducible: the same x, k, opt.Seed and options give the same graph
+// for any opt.Threads. opt.M, opt.Ask, opt.Shards and opt.IndexRows are
+// ignored; BuildSeconds in the stats is the time of the start. Preconditions
+// as for Approx.
 func Descent(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, error) {
 	var st ApproxStats
 	if err := checkInput(x, k); err != nil {
@@ -398,40 +456,25 @@ func Descent(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, er
 	}
 	n := x.N
 	g := &Graph{N: n, K: k, Index: make([]int32, n*k), Dist2: make([]float32, n*k)}
-	forBlocks(n, descentBlock, opt.Threads, func(lo, hi int) {
-		seen := make(map[int32]struct{}, k)
-		for i := lo; i < hi; i++ {
-			clear(seen)
-			r := newRowRand(opt.Seed, 1<<41, uint64(i))
-			row := g.Index[i*k : (i+1)*k]
-			if 2*k >= n { // dense: a partial shuffle of the other rows
-				all := make([]int32, 0, n-1)
-				for j := 0; j < n; j++ {
-					if j != i {
-						all = append(all, int32(j))
-					}
-				}
-				partialShuffle(all, k, &r)
-				copy(row, all[:k])
-				continue
-			}
-			for j := 0; j < k; {
-				v := int32(r.intn(n))
-				if int(v) == i {
-					continue
-				}
-				if _, ok := seen[v]; ok {
-					continue
-				}
-				seen[v] = struct{}{}
-				row[j] = v
-				j++
-			}
-		}
-	})
+	t0 := time.Now()
+	var order []int32
+	if opt.Trees > 0 {
+		// Work on rows renumbered in the leaf order of one more tree (see
+		// rptree.go); the graph is mapped back at the end.
+		order = buildRPTree(rows, opt.LeafRows, opt.Seed, 1<<20).perm
+		rows = permuteRows(rows, order, opt.Threads)
+		rpStart(g, rows, opt.Trees, opt.LeafRows, opt.Seed, opt.Threads)
+	} else {
+		randomStart(g, opt.Seed, opt.Threads)
+	}
+	startSec := time.Since(t0).Seconds()
 	rs, err := refineRows(g, rows, opt)
+	rs.BuildSeconds = startSec
 	if err != nil {
 		return nil, rs, fmt.Errorf("neighbours by NN-descent: %w", err)
+	}
+	if order != nil {
+		unpermuteGraph(g, order, opt.Threads)
 	}
 	return g, rs, nil
 }

@@ -32,16 +32,22 @@ func Recall(g *Graph, x ingest.Matrix, sample int, seed uint64, opt Options) (re
 	if err != nil {
 		return 0, 0, fmt.Errorf("recall: %w", err)
 	}
+	return probeRecall(g, sel, idx), len(sel), nil
+}
+
+// probeRecall returns the recall of g on the rows probe, whose exact
+// neighbour lists are truth (len(probe)·g.K entries, probe-major).
+func probeRecall(g *Graph, probe, truth []int32) float64 {
 	k := g.K
 	var hits int64
 	a := make([]int32, k)
 	b := make([]int32, k)
-	for q, r := range sel {
+	for q, r := range probe {
 		copy(a, g.Index[int(r)*k:(int(r)+1)*k])
-		copy(b, idx[q*k:(q+1)*k])
+		copy(b, truth[q*k:(q+1)*k])
 		hits += int64(countCommon(a, b))
 	}
-	return float64(hits) / (float64(len(sel)) * float64(k)), len(sel), nil
+	return float64(hits) / (float64(len(probe)) * float64(k))
 }
 
 // countCommon returns the number of values present in both a and b, counting a

@@ -1,0 +1,339 @@
+package knn
+
+import (
+	"math"
+	"sync"
+
+	"nightjar/ingest"
+)
+
+// Starting lists for NN-descent from random projection trees (Dasgupta &
+// Freund 2008, "Random projection trees and low dimensional manifolds",
+// STOC). A tree splits its rows in two by the hyperplane that bisects two
+// rows drawn at random, and again until a node holds at most leaf rows; rows
+// that share a leaf are likely to be near one another. Each row starts with
+// the k nearest of the rows it shares a leaf with in any of the trees, and
+// random rows where those are fewer than k. Written by hand: no library in
+// the module graph offers such trees, and the start must be the same bits for
+// any thread count (every tree draws from its own generator, and a row's list
+// is computed from the finished trees alone).
+
+// rpTree is one random projection tree, kept only as its leaves: perm holds
+// the rows in leaf order, leaf r covering perm[start[r]:start[r+1]], and
+// leafOf[i] is the leaf of row i.
+type rpTree struct {
+	perm   []int32
+	start  []int32
+	leafOf []int32
+}
+
+// buildRPTree splits the rows of x into leaves of at most leaf rows. seed and
+// tree select the random choices.
+func buildRPTree(x ingest.Matrix, leaf int, seed, tree uint64) rpTree {
+	n, dim := x.N, x.D
+	t := rpTree{perm: make([]int32, n), leafOf: make([]int32, n)}
+	for i := range t.perm {
+		t.perm[i] = int32(i)
+	}
+	r := newRowRand(seed, 1<<42+tree, 0)
+	side := make([]bool, n)
+	w := make([]float32, dim)
+	type span struct{ lo, hi int }
+	stack := []span{{0, n}}
+	for len(stack) > 0 {
+		s := stack[len(stack)-1]
+		stack = stack[:len(stack)-1]
+		rows := t.perm[s.lo:s.hi]
+		if len(rows) <= leaf {
+			t.start = append(t.start, int32(s.lo))
+			continue
+		}
+		cut := splitRows(x, rows, side, w, &r)
+		// Push the right part first so that leaves come out in perm order.
+		stack = append(stack, span{s.lo + cut, s.hi}, span{s.lo, s.lo + cut})
+	}
+	t.start = append(t.start, int32(n))
+	for l := 0; l+1 < len(t.start); l++ {
+		for _, i := range t.perm[t.start[l]:t.start[l+1]] {
+			t.leafOf[i] = int32(l)
+		}
+	}
+	return t
+}
+
+// splitRows reorders rows so that those nearer to a than to b, for two rows
+// a and b drawn at random, come first, and returns their count. When that
+// leaves a side empty (all rows on one side of the hyperplane, as with
+// duplicate rows), it cuts a random shuffle of rows in two halves instead.
+// side and w are scratch space of at least len(rows) and x.D entries.
+func splitRows(x ingest.Matrix, rows []int32, side []bool, w []float32, r *rowRand) int {
+	dim := x.D
+	m := len(rows)
+	a := int(rows[r.intn(m)])
+	b := int(rows[r.intn(m)])
+	xa := x.Data[a*dim : (a+1)*dim]
+	xb := x.Data[b*dim : (b+1)*dim]
+	// Nearer to a: w·x > (‖a‖² − ‖b‖²)/2 with w = a − b.
+	var t float32
+	for l := range w {
+		w[l] = xa[l] - xb[l]
+		t += (xa[l]*xa[l] - xb[l]*xb[l]) / 2
+	}
+	cut := 0
+	for j, i := range rows {
+		xi := x.Data[int(i)*dim : (int(i)+1)*dim]
+		var dot float32
+		for l, v := range w {
+			dot += v * xi[l]
+		}
+		side[j] = dot > t
+		if side[j] {
+			cut++
+		}
+	}
+	if cut == 0 || cut == m {
+		partialShuffle(rows, m/2, r)
+		return m / 2
+	}
+	// Stable in-place partition would cost a buffer; a two-pointer swap
+	// keeps the order random enough and is all that is needed.
+	lo, hi := 0, m-1
+	for lo < hi {
+		for lo < hi && side[lo] {
+			lo++
+		}
+		for lo < hi && !side[hi] {
+			hi--
+		}
+		if lo < hi {
+			rows[lo], rows[hi] = rows[hi], rows[lo]
+			side[lo], side[hi] = side[hi], side[lo]
+		}
+	}
+	return cut
+}
+
+// rpStart fills g.Index (g.N rows of g.K) with starting lists from trees
+// random projection trees of at most leaf rows each, built concurrently on
+// up to threads goroutines, and g.Dist2 with their dist2 distances; rows are
+// sorted by (distance, index).
+//
+// The trees are taken one after the other. Within a tree the leaves are
+// disjoint, so they are processed in parallel without locks: a leaf's rows
+// are gathered into a contiguous block (the pairs of a leaf then cost one
+// read of each row from memory instead of one per pair) and each row merges
+// its sorted leaf-mates into its list.
+func rpStart(g *Graph, x ingest.Matrix, trees, leaf int, seed uint64, threads int) {
+	n, k, dim := g.N, g.K, x.D
+	forest := make([]rpTree, trees)
+	var wg sync.WaitGroup
+	sem := make(chan struct{}, max(1, threads))
+	for t := range forest {
+		wg.Add(1)
+		sem <- struct{}{}
+		go func() {
+			defer wg.Done()
+			forest[t] = buildRPTree(x, leaf, seed, uint64(t))
+			<-sem
+		}()
+	}
+	wg.Wait()
+	inf := float32(math.Inf(1))
+	for i := range g.Index {
+		g.Index[i], g.Dist2[i] = -1, inf
+	}
+	for _, t := range forest {
+		leaves := len(t.start) - 1
+		forBlocks(leaves, 16, threads, func(lo, hi int) {
+			block := make([]float32, 0, leaf*dim)
+			pd := make([]float32, leaf*leaf)
+			ci := make([]int32, 0, leaf)
+			cd := make([]float32, 0, leaf)
+			mi := make([]int32, k)
+			md := make([]float32, k)
+			var keys []uint64
+			for l := lo; l < hi; l++ {
+				rows := t.perm[t.start[l]:t.start[l+1]]
+				m := len(rows)
+				block = block[:0]
+				for _, i := range rows {
+					block = append(block, x.Data[int(i)*dim:(int(i)+1)*dim]...)
+				}
+				for a := 0; a < m; a++ {
+					xa := block[a*dim : (a+1)*dim]
+					for b := a + 1; b < m; b++ {
+						dd := dist2(xa, block[b*dim:(b+1)*dim])
+						pd[a*m+b], pd[b*m+a] = dd, dd
+					}
+				}
+				for a, i := range rows {
+					ci, cd = ci[:0], cd[:0]
+					for b, v := range rows {
+						if b != a {
+							ci = append(ci, v)
+							cd = append(cd, pd[a*m+b])
+						}
+					}
+					keys = sortRow(ci, cd, keys)
+					row := int(i) * k
+					mergeTop(g.Index[row:row+k], g.Dist2[row:row+k], ci, cd, mi, md)
+				}
+			}
+		})
+	}
+	// Rows with fewer than k distinct leaf-mates in all trees: random fill.
+	forBlocks(n, descentBlock, threads, func(lo, hi int) {
+		seen := make(map[int32]struct{}, k)
+		for i := lo; i < hi; i++ {
+			row := g.Index[i*k : (i+1)*k]
+			have := k
+			for have > 0 && row[have-1] < 0 {
+				have--
+			}
+			if have < k {
+				fillRandom(row, have, i, n, seed, seen)
+			}
+		}
+	})
+}
+
+// mergeTop replaces the sorted list (idx, d) by the k = len(idx) first
+// entries of its union with the sorted candidates (ci, cd) under the order
+// (distance, index), an entry present in both counted once (a pair's
+// distance is the same bits wherever it is computed). Empty slots hold index
+// −1 at +Inf and sort last. mi and md are scratch of length k.
+func mergeTop(idx []int32, d []float32, ci []int32, cd []float32, mi []int32, md []float32) {
+	k := len(idx)
+	a, b := 0, 0
+	for o := 0; o < k; o++ {
+		switch {
+		case b == len(ci) || (a < k && idx[a] >= 0 && (d[a] < cd[b] || (d[a] == cd[b] && idx[a] < ci[b]))):
+			mi[o], md[o] = idx[a], d[a]
+			a++
+		case a < k && idx[a] == ci[b] && d[a] == cd[b]:
+			mi[o], md[o] = idx[a], d[a]
+			a++
+			b++
+		default:
+			mi[o], md[o] = ci[b], cd[b]
+			b++
+		}
+	}
+	copy(idx, mi)
+	copy(d, md)
+}
+
+// randomStart fills g.Index with k distinct random rows other than the row
+// itself: the starting point of Dong, Charikar & Li 2011.
+func randomStart(g *Graph, seed uint64, threads int) {
+	n, k := g.N, g.K
+	forBlocks(n, descentBlock, threads, func(lo, hi int) {
+		seen := make(map[int32]struct{}, k)
+		for i := lo; i < hi; i++ {
+			fillRandom(g.Index[i*k:(i+1)*k], 0, i, n, seed, seen)
+		}
+	})
+}
+
+// fillRandom completes row (the list of row i, whose first have entries are
+// set and distinct) with distinct random rows other than i and those already
+// there. seen is scratch space.
+func fillRandom(row []int32, have, i, n int, seed uint64, seen map[int32]struct{}) {
+	k := len(row)
+	r := newRowRand(seed, 1<<41, uint64(i))
+	if 2*k >= n { // dense: a partial shuffle of the rows left
+		clear(seen)
+		for _, v := range row[:have] {
+			seen[v] = struct{}{}
+		}
+		rest := make([]int32, 0, n-1)
+		for j := 0; j < n; j++ {
+			if _, ok := seen[int32(j)]; !ok && j != i {
+				rest = append(rest, int32(j))
+			}
+		}
+		partialShuffle(rest, k-have, &r)
+		copy(row[have:], rest[:k-have])
+		return
+	}
+	clear(seen)
+	for _, v := range row[:have] {
+		seen[v] = struct{}{}
+	}
+	for j := have; j < k; {
+		v := int32(r.intn(n))
+		if int(v) == i {
+			continue
+		}
+		if _, ok := seen[v]; ok {
+			continue
+		}
+		seen[v] = struct{}{}
+		row[j] = v
+		j++
+	}
+}
+
+// Locality. NN-descent reads the rows and lists of a row's neighbours, which
+// in input order lie anywhere in memory: at 1,000,000 rows nearly every such
+// read misses the caches. Descent therefore renumbers the rows in the leaf
+// order of one more tree, so that near rows get near numbers, works on the
+// renumbered copy, and maps the graph back (the same idea as the
+// breadth-first renumbering of the optimiser, gradient/order.go).
+
+// permuteRows returns the rows of x in the given order (a permutation of
+// 0 … N−1): row t of the result is row order[t] of x.
+func permuteRows(x ingest.Matrix, order []int32, threads int) ingest.Matrix {
+	out := ingest.Matrix{N: x.N, D: x.D, Data: make([]float32, len(x.Data))}
+	d := x.D
+	forBlocks(x.N, 4096, threads, func(lo, hi int) {
+		for t := lo; t < hi; t++ {
+			i := int(order[t])
+			copy(out.Data[t*d:(t+1)*d], x.Data[i*d:(i+1)*d])
+		}
+	})
+	return out
+}
+
+// unpermuteGraph turns g, a graph of the rows of permuteRows(x, order), into
+// the graph of x in place: neighbour numbers are mapped through order, row t
+// moves to row order[t] (by following the permutation's cycles), and rows are
+// sorted again by (distance, index), since ties now rank by other numbers.
+func unpermuteGraph(g *Graph, order []int32, threads int) {
+	n, k := g.N, g.K
+	forBlocks(n, descentBlock, threads, func(lo, hi int) {
+		for e := lo * k; e < hi*k; e++ {
+			g.Index[e] = order[g.Index[e]]
+		}
+	})
+	done := make([]bool, n)
+	ci := make([]int32, k)
+	cd := make([]float32, k)
+	for s := 0; s < n; s++ {
+		if done[s] {
+			continue
+		}
+		copy(ci, g.Index[s*k:(s+1)*k])
+		copy(cd, g.Dist2[s*k:(s+1)*k])
+		p := s
+		for {
+			q := int(order[p])
+			done[q] = true
+			// The carried row belongs at q; take out what was there.
+			for j := 0; j < k; j++ {
+				ci[j], g.Index[q*k+j] = g.Index[q*k+j], ci[j]
+				cd[j], g.Dist2[q*k+j] = g.Dist2[q*k+j], cd[j]
+			}
+			if q == s {
+				break
+			}
+			p = q
+		}
+	}
+	forBlocks(n, descentBlock, threads, func(lo, hi int) {
+		var keys []uint64
+		for i := lo; i < hi; i++ {
+			keys = sortRow(g.Index[i*k:(i+1)*k], g.Dist2[i*k:(i+1)*k], keys)
+		}
+	})
+}
