@@ -3,8 +3,10 @@ package main
 import (
 	"bytes"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"math"
 	"os"
 	"os/exec"
@@ -23,7 +25,7 @@ import (
 const benchExample = "nightjar bench --data mnist --rows 20000 --vary theta=0.25,0.5,1 --out bench-theta"
 
 // varyKeys are the settings a sweep may vary: the embed options of the same names.
-var varyKeys = []string{"theta", "perplexity", "neighbours", "metric", "iterations", "early-iterations",
+var varyKeys = []string{"theta", "perplexity", "neighbours", "metric", "recall-goal", "iterations", "early-iterations",
 	"exaggeration", "late-exaggeration", "start", "start-rows", "learning-rate", "degrees-of-freedom", "repulsion", "dims", "threads", "seed"}
 
 type varyFlag []struct {
@@ -150,10 +152,15 @@ func runBench(args []string, stdout, stderr io.Writer) error {
 	if len(sizes) > 1 {
 		meta.Rows = 0
 	}
-	if err := writeBenchReports(*out, meta, keys, results); err != nil {
+	chart, err := writeBenchReports(*out, meta, keys, results)
+	if err != nil {
 		return err
 	}
-	fmt.Fprintf(stdout, "bench: %d runs; reports in %s (bench.csv, bench.md, bench.png)\n", len(results), *out)
+	files := "bench.csv, bench.md, bench.png"
+	if !chart {
+		files = "bench.csv, bench.md; no bench.png: no run has a trustworthiness score (--score-sample 0?)"
+	}
+	fmt.Fprintf(stdout, "bench: %d runs; reports in %s (%s)\n", len(results), *out, files)
 	return nil
 }
 
@@ -286,7 +293,7 @@ func benchRun(self, input, runDir string, s settings, r runtimeOpts, keys []stri
 func settingsArgs(s settings) []string {
 	f := func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
 	a := []string{"--dims", strconv.Itoa(s.Dims), "--perplexity", f(s.Perplexity), "--neighbours", s.Neighbours,
-		"--metric", s.Metric, "--check-recall", strconv.Itoa(s.CheckRecall), "--iterations", strconv.Itoa(s.Iterations),
+		"--metric", s.Metric, "--check-recall", strconv.Itoa(s.CheckRecall), "--recall-goal", f(s.RecallGoal), "--iterations", strconv.Itoa(s.Iterations),
 		"--early-iterations", strconv.Itoa(s.EarlyIterations), "--exaggeration", f(s.Exaggeration),
 		"--late-exaggeration", f(s.LateExaggeration), "--start", s.Start, "--start-rows", strconv.Itoa(s.StartRows),
 		"--learning-rate", f(s.LearningRate), "--momentum-early", f(s.MomentumEarly), "--momentum", f(s.MomentumLate),
@@ -309,23 +316,34 @@ func settingsArgs(s settings) []string {
 	return a
 }
 
-// writeBenchReports writes bench.csv, bench.md and bench.png into out.
-func writeBenchReports(out string, meta bench.Meta, keys []string, rs []bench.Result) error {
+// writeBenchReports writes bench.csv, bench.md and bench.png into out, and
+// reports whether it drew bench.png: it does not when no run has both a time
+// and a trustworthiness score (runs with --score-sample 0, or all failed), and
+// then removes any bench.png left by an earlier sweep in out.
+func writeBenchReports(out string, meta bench.Meta, keys []string, rs []bench.Result) (bool, error) {
 	if err := checkpoint.AtomicWrite(filepath.Join(out, "bench.csv"), func(w io.Writer) error { return bench.WriteCSV(w, meta, keys, rs) }); err != nil {
-		return fmt.Errorf("writing bench.csv: %w", err)
+		return false, fmt.Errorf("writing bench.csv: %w", err)
 	}
 	if err := checkpoint.AtomicWrite(filepath.Join(out, "bench.md"), func(w io.Writer) error { return bench.WriteMarkdown(w, meta, keys, rs) }); err != nil {
-		return fmt.Errorf("writing bench.md: %w", err)
+		return false, fmt.Errorf("writing bench.md: %w", err)
 	}
 	var pts []figure.TradeoffPoint
+	drawable := false
 	for _, r := range rs {
 		pts = append(pts, figure.TradeoffPoint{Name: r.Name, Seconds: r.Seconds, Quality: r.Trust})
+		drawable = drawable || (!math.IsNaN(r.Seconds) && !math.IsNaN(r.Trust))
+	}
+	if !drawable {
+		if err := os.Remove(filepath.Join(out, "bench.png")); err != nil && !errors.Is(err, fs.ErrNotExist) {
+			return false, fmt.Errorf("removing the old bench.png: %w", err)
+		}
+		return false, nil
 	}
 	title := fmt.Sprintf("%s: trustworthiness@%d against wall time (%d cores, %s)", meta.Dataset, meta.K, meta.Cores, meta.GoVersion)
 	if err := checkpoint.AtomicWrite(filepath.Join(out, "bench.png"), func(w io.Writer) error {
 		return figure.DrawTradeoff(w, title, fmt.Sprintf("trustworthiness@%d", meta.K), pts)
 	}); err != nil {
-		return fmt.Errorf("writing bench.png: %w", err)
+		return false, fmt.Errorf("writing bench.png: %w", err)
 	}
-	return nil
+	return true, nil
 }

@@ -55,3 +55,33 @@ func TestBenchSweep(t *testing.T) {
 		t.Errorf("bench.png: %v", err)
 	}
 }
+
+// TestBenchNoScores: a sweep without quality scores (--score-sample 0) still
+// succeeds, writes bench.csv and bench.md, says why there is no bench.png and
+// removes one left by an earlier sweep in the same folder.
+func TestBenchNoScores(t *testing.T) {
+	out := filepath.Join(t.TempDir(), "sweep")
+	if err := os.MkdirAll(out, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(filepath.Join(out, "bench.png"), []byte("stale"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	cmd := exec.Command(binary, "bench", "--data", "demo", "--rows", "400", "--out", out, "--quiet",
+		"--vary", "seed=1,2", "--iterations", "30", "--early-iterations", "10", "--score-sample", "0")
+	b, err := cmd.CombinedOutput()
+	if err != nil {
+		t.Fatalf("bench: %v\n%s", err, b)
+	}
+	if !strings.Contains(string(b), "no bench.png") {
+		t.Errorf("output does not say why bench.png is missing:\n%s", b)
+	}
+	for _, name := range []string{"bench.csv", "bench.md"} {
+		if _, err := os.Stat(filepath.Join(out, name)); err != nil {
+			t.Error(err)
+		}
+	}
+	if _, err := os.Stat(filepath.Join(out, "bench.png")); !os.IsNotExist(err) {
+		t.Errorf("stale bench.png still there (%v)", err)
+	}
+}

@@ -4,9 +4,11 @@ import (
 	"bytes"
 	"encoding/json"
 	"io"
+	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -207,13 +209,54 @@ func TestEmbedHNSW(t *testing.T) {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
 	nb := readReport(t, runDir)["neighbours"].(map[string]any)
-	if nb["method"] != "hnsw" || nb["recall_sample"].(float64) != 500 {
+	if nb["method"] != "hnsw" || nb["recall_sample"].(float64) != 500 || len(nb["pass_recall"].([]any)) == 0 {
 		t.Errorf("neighbours report: %v", nb)
 	}
 	// HNSW candidates refined by NN-descent: recall near 1 at this size
 	// (knn's own tests measure 0.99 and above on 3,000–5,000 rows).
 	if r := nb["recall"].(float64); r < 0.9 {
 		t.Errorf("hnsw recall = %.4f", r)
+	}
+}
+
+// TestEmbedRecallGoal: --neighbours descent stops refining once the recall
+// estimated on its own sample reaches --recall-goal; the report lists the
+// estimates (one before the first pass, one after each), and the recall
+// checked on another sample against the exact search agrees with the last
+// one. A goal outside (0, 1] is a usage error.
+func TestEmbedRecallGoal(t *testing.T) {
+	dir := t.TempDir()
+	in := writeDemoTable(t, dir, 12000)
+	for _, goal := range []string{"0.9", "1"} {
+		runDir := filepath.Join(dir, "run-"+goal)
+		code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--neighbours", "descent", "--recall-goal", goal,
+			"--check-recall", "500", "--iterations", "50", "--early-iterations", "20", "--quiet", "--score-sample", "0")
+		if code != 0 {
+			t.Fatalf("exit %d: %s", code, errs)
+		}
+		nb := readReport(t, runDir)["neighbours"].(map[string]any)
+		est := nb["pass_recall"].([]any)
+		passes := int(nb["passes"].(float64))
+		if len(est) != passes+1 {
+			t.Fatalf("goal %s: %d estimates for %d passes: %v", goal, len(est), passes, nb)
+		}
+		g, _ := strconv.ParseFloat(goal, 64)
+		last := est[passes].(float64)
+		for _, e := range est[:passes] {
+			if e.(float64) >= g {
+				t.Errorf("goal %s: estimates %v reached it before the last pass", goal, est)
+			}
+		}
+		if r := nb["recall"].(float64); math.Abs(r-last) > 0.05 || (g < 1 && r < g-0.05) {
+			t.Errorf("goal %s: checked recall %.4f, last estimate %.4f", goal, r, last)
+		}
+		t.Logf("goal %s: estimates %v, checked %.4f", goal, est, nb["recall"])
+	}
+	for _, bad := range []string{"0", "1.5", "-0.2"} {
+		code, _, errs := runCLI("embed", "--input", in, "--run", filepath.Join(dir, "bad"), "--recall-goal", bad)
+		if code != exitBadInput || !strings.Contains(errs, "--recall-goal") {
+			t.Errorf("--recall-goal %s: exit %d (%s), want %d", bad, code, errs, exitBadInput)
+		}
 	}
 }
 

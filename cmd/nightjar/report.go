@@ -36,6 +36,10 @@ type report struct {
 		Seconds      float64  `json:"seconds"`
 		Recall       *float64 `json:"recall,omitempty"`
 		RecallSample int      `json:"recall_sample,omitempty"`
+		// Passes and PassRecall: NN-descent passes run, and the recall
+		// estimated on the stopping sample before the first and after each.
+		Passes     *int      `json:"passes,omitempty"`
+		PassRecall []float64 `json:"pass_recall,omitempty"`
 	} `json:"neighbours"`
 	Affinities struct {
 		Seconds float64 `json:"seconds"`

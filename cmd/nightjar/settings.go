@@ -32,6 +32,7 @@ type settings struct {
 	Neighbours  string  `json:"neighbours"`
 	Metric      string  `json:"metric"`
 	CheckRecall int     `json:"check_recall"`
+	RecallGoal  float64 `json:"recall_goal"`
 
 	Iterations      int     `json:"iterations"`
 	EarlyIterations int     `json:"early_iterations"`
@@ -67,6 +68,7 @@ func defaultSettings() settings {
 	// θ = 0.5 (van der Maaten 2014), Cauchy kernel (degrees of freedom 1).
 	return settings{
 		Dims: 2, Perplexity: 30, Neighbours: "auto", Metric: "euclidean", CheckRecall: 1000,
+		RecallGoal: 0.99,
 		Iterations: 1000, EarlyIterations: 250, Exaggeration: 12, LateExaggeration: 1,
 		Start: "pca", StartRows: 25000,
 		MomentumEarly: 0.5, MomentumLate: 0.8, Dof: 1, Theta: 0.5,
@@ -153,9 +155,10 @@ func addSettingsFlags(fs *flag.FlagSet, s *settings) {
 	fs.IntVar(&s.Dims, "dims", s.Dims, "dimensions of the map: 2 or 3")
 	fs.Float64Var(&s.Perplexity, "perplexity", s.Perplexity, "effective number of neighbours each row keeps (needs at least 3·perplexity+1 rows)")
 	fs.IntVar(&s.Reduce, "reduce", s.Reduce, "project the features onto their first N principal components while reading, in two streamed passes (for wide tables; 0 = off)")
-	fs.StringVar(&s.Neighbours, "neighbours", s.Neighbours, "neighbour search: exact; descent (NN-descent from random lists, repeatable bit for bit); hnsw (an HNSW index on a sample of rows gives starting candidates, refined by NN-descent; not bit-repeatable); auto = exact up to 50,000 rows, else descent")
+	fs.StringVar(&s.Neighbours, "neighbours", s.Neighbours, "neighbour search: exact; descent (NN-descent started from random projection trees, repeatable bit for bit); hnsw (an HNSW index on a sample of rows gives starting candidates, refined by NN-descent; not bit-repeatable); auto = exact up to 50,000 rows, else descent")
 	fs.StringVar(&s.Metric, "metric", s.Metric, "distance between rows: euclidean or cosine")
 	fs.IntVar(&s.CheckRecall, "check-recall", s.CheckRecall, "rows sampled to measure the recall of approximate neighbours (0 = off)")
+	fs.Float64Var(&s.RecallGoal, "recall-goal", s.RecallGoal, "approximate neighbours: refine until the recall estimated on 300 sampled rows reaches this, or six passes (1 = until a pass changes almost nothing)")
 	fs.IntVar(&s.Iterations, "iterations", s.Iterations, "optimiser iterations in all, early exaggeration included")
 	fs.IntVar(&s.EarlyIterations, "early-iterations", s.EarlyIterations, "iterations with early exaggeration")
 	fs.Float64Var(&s.Exaggeration, "exaggeration", s.Exaggeration, "early exaggeration factor")
@@ -192,6 +195,9 @@ func (s *settings) check() error {
 	}
 	if s.Reduce < 0 || (s.Reduce > 0 && s.Reduce < s.Dims) {
 		return usagef("--reduce must be 0 (off) or at least --dims (%d), got %d", s.Dims, s.Reduce)
+	}
+	if !(s.RecallGoal > 0 && s.RecallGoal <= 1) {
+		return usagef("--recall-goal must be in (0, 1], got %g", s.RecallGoal)
 	}
 	if s.CheckRecall < 0 {
 		return usagef("--check-recall must be 0 or more, got %d", s.CheckRecall)
