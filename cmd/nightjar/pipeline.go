@@ -179,8 +179,11 @@ func (j *job) readInput(resumed bool) error {
 		j.rep.Reduced = &reduced{From: pca.D, To: pca.K, Variance: pca.Variance}
 	}
 	fp.ValuesHash = t.Hash
-	if resumed {
-		if same, why := j.run.Manifest().Input.Same(fp); !same {
+	// A run killed after its manifest was first written but before the
+	// input was read has no input recorded, and nothing computed from it:
+	// there is nothing to compare.
+	if rec := j.run.Manifest().Input; resumed && rec.Path != "" {
+		if same, why := rec.Same(fp); !same {
 			if !j.r.force {
 				return &usageError{fmt.Sprintf("input %s changed since the run began (%s); resume with --force to use it anyway", j.s.Input, why)}
 			}

@@ -205,3 +205,48 @@ func TestResumeRefusesChangedInput(t *testing.T) {
 		t.Errorf("resume on changed input: exit %d, %q", code, errs)
 	}
 }
+
+// TestResumeBeforeInputRecorded: a run killed after its manifest was first
+// written but before the input was read (found by TestKillResumeSameBits)
+// resumes without --force and ends with the uninterrupted bits.
+func TestResumeBeforeInputRecorded(t *testing.T) {
+	dir := t.TempDir()
+	in := writeDemoTable(t, dir, killRows())
+	want, _ := reference(t, in, dir)
+	runDir := filepath.Join(dir, "early")
+	code, _, errs := runCLI(append([]string{"embed", "--input", in, "--run", runDir}, killArgs...)...)
+	if code != 0 {
+		t.Fatalf("embed: %d %s", code, errs)
+	}
+	// Put the run back where a kill right after the first manifest leaves
+	// it: phase "created", no input recorded, nothing computed.
+	run, err := checkpoint.Open(runDir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := run.Manifest()
+	m.Status, m.Phase, m.Input = checkpoint.StatusRunning, checkpoint.PhaseCreated, checkpoint.Fingerprint{}
+	m.Iteration, m.KL, m.Files = 0, 0, nil
+	if err := run.SaveManifest(m); err != nil {
+		t.Fatal(err)
+	}
+	for _, name := range []string{fileGraph, fileP, fileEmbedding, fileMap, fileReport, "state-"} {
+		matches, _ := filepath.Glob(filepath.Join(runDir, name+"*"))
+		for _, f := range matches {
+			if err := os.Remove(f); err != nil {
+				t.Fatal(err)
+			}
+		}
+	}
+	code, _, errs = runCLI("resume", runDir, "--quiet")
+	if code != 0 {
+		t.Fatalf("resume: exit %d: %s", code, errs)
+	}
+	got, err := os.ReadFile(filepath.Join(runDir, fileEmbedding))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(got, want) {
+		t.Error("resumed run differs from the uninterrupted one")
+	}
+}
