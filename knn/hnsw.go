@@ -428,6 +428,11 @@ func refineRows(g *Graph, rows ingest.Matrix, opt ApproxOptions) (ApproxStats, e
 		}
 		p.truth = truth
 		st.ProbeSeconds = time.Since(t0).Seconds()
+		// The exact search leaves an N·D copy of the rows behind; collect
+		// it (and the start's garbage) now, so that the refinement's
+		// arrays reuse that memory instead of adding to it. The heap is
+		// mostly pointer-free arrays, so a collection costs milliseconds.
+		runtime.GC()
 	}
 	res, err := refine(g, rows, p)
 	st.Passes, st.PassSeconds, st.Updates, st.PassRecall = res.passes, res.seconds, res.updates, res.recall
