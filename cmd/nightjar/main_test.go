@@ -8,6 +8,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
 	"testing"
@@ -308,5 +309,39 @@ func TestEmbedAboveExactKL(t *testing.T) {
 		if v, ok := mem[phase].(float64); !ok || v <= 0 {
 			t.Errorf("peak memory after %s: %v", phase, mem[phase])
 		}
+	}
+}
+
+// TestIDLikeColumns: the names that draw the row-identifier warning.
+func TestIDLikeColumns(t *testing.T) {
+	cases := []struct {
+		in   []string
+		want []string
+	}{
+		{[]string{"pc_1", "pc_2"}, nil},
+		{[]string{"id", "pc_1"}, []string{"id"}},
+		{[]string{"ID", "Cell_ID", "width", "idle", "__index_level_0__", "Index"}, []string{"ID", "Cell_ID", "__index_level_0__", "Index"}},
+		{[]string{"rowid", "row_id", "row", "grid"}, []string{"rowid", "row_id"}},
+	}
+	for _, c := range cases {
+		if got := idLikeColumns(c.in); !slices.Equal(got, c.want) {
+			t.Errorf("idLikeColumns(%q) = %q, want %q", c.in, got, c.want)
+		}
+	}
+}
+
+// TestWarnsIDFeature: the demo table read without --id uses its integer id
+// column as a feature; the run goes on and says so once, on stderr.
+func TestWarnsIDFeature(t *testing.T) {
+	dir := t.TempDir()
+	in := writeDemoTable(t, dir, 300)
+	args := []string{"embed", "--input", in, "--run", filepath.Join(dir, "noid"), "--perplexity", "10", "--iterations", "30", "--early-iterations", "10", "--quiet"}
+	code, _, errs := runCLI(args...)
+	if code != 0 || strings.Count(errs, `feature column "id" looks like a row identifier`) != 1 {
+		t.Errorf("without --id: exit %d, stderr %q", code, errs)
+	}
+	code, _, errs = runCLI(append(args[:4:4], filepath.Join(dir, "withid"), "--id", "id", "--iterations", "30", "--early-iterations", "10", "--quiet")...)
+	if code != 0 || strings.Contains(errs, "row identifier") {
+		t.Errorf("with --id: exit %d, stderr %q", code, errs)
 	}
 }

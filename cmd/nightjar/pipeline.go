@@ -8,6 +8,7 @@ import (
 	"io/fs"
 	"os"
 	"os/signal"
+	"strings"
 	"runtime"
 	"sync"
 	"sync/atomic"
@@ -162,6 +163,23 @@ func exitCodeFor(sig syscall.Signal) int {
 	return exitInterrupt
 }
 
+// idLikeColumns returns the feature names that look like row identifiers or
+// a saved data-frame index (common practice for such names; pandas writes its
+// index to Parquet as "__index_level_0__", from memory): id, index, rowid,
+// row_id, or a name ending in _id.
+func idLikeColumns(features []string) []string {
+	var out []string
+	for _, f := range features {
+		l := strings.ToLower(f)
+		switch {
+		case l == "id", l == "index", l == "rowid", l == "row_id",
+			strings.HasSuffix(l, "_id"), strings.HasPrefix(l, "__index_level_"):
+			out = append(out, f)
+		}
+	}
+	return out
+}
+
 // readInput reads the table and checks (on resume) that it is the one the run began with.
 func (j *job) readInput(resumed bool) error {
 	t0 := time.Now()
@@ -195,6 +213,11 @@ func (j *job) readInput(resumed bool) error {
 	m.Input = fp
 	j.mu.Unlock()
 	j.table = t
+	if len(j.s.Features) == 0 {
+		for _, name := range idLikeColumns(t.Features) {
+			j.ui.warn("feature column %q looks like a row identifier, and its values would weigh on every distance; if it is one, pass --id %s or choose the features with --features", name, name)
+		}
+	}
 	if t.Skipped > 0 {
 		j.ui.note("skipped %d rows with NaN, Inf or empty features (--skip-invalid)", t.Skipped)
 	}
