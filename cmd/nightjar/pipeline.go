@@ -9,7 +9,7 @@ import (
 	"os"
 	"os/signal"
 	"strings"
-	"runtime"
+	"runtime/debug"
 	"sync"
 	"sync/atomic"
 	"syscall"
@@ -248,13 +248,18 @@ func (j *job) affinities() (gradient.Affinities, error) {
 		if g, err = j.neighbours(k); err != nil {
 			return gradient.Affinities{}, err
 		}
+		// The neighbour search's work arrays (about 1 GB at 1,000,000 rows)
+		// are garbage now. Collect them and hand the pages back to the
+		// system, so that P's arrays do not stack up on pages the process
+		// still holds (measured: 3.28 GB peak at 1,000,000 rows without).
+		debug.FreeOSMemory()
 	}
 	j.setStatus(checkpoint.StatusRunning, checkpoint.PhaseAffinities)
 	t0 := time.Now()
 	// The graph is saved (or was loaded), so its memory can hold the
 	// conditional probabilities.
 	P, err := knn.AffinityConsume(g, j.s.Perplexity, j.r.Threads)
-	runtime.GC()
+	debug.FreeOSMemory()
 	if err != nil {
 		return gradient.Affinities{}, err
 	}
@@ -419,7 +424,7 @@ func (j *job) optimise(pp *gradient.Affinities) ([]float64, error) {
 		return nil, err
 	}
 	*pp = gradient.Affinities{}
-	runtime.GC() // P as loaded or built is garbage now: reclaim it before it can stack up
+	debug.FreeOSMemory() // P as loaded or built is garbage now: reclaim it before it can stack up
 	if restored != nil {
 		if err := opt.Restore(*restored); err != nil {
 			return nil, fmt.Errorf("restoring the optimiser state of %s: %w", j.run.Dir, err)
