@@ -91,6 +91,11 @@ type ApproxOptions struct {
 	Shards int
 	// MaxPasses caps the NN-descent passes.
 	MaxPasses int
+	// InPlace lets Descent reorder the rows of x in place while it runs,
+	// restoring them before it returns, instead of working on a reordered
+	// copy: N·D·4 bytes less at its peak (200 MB at 1,000,000 × 50). Nothing
+	// else may read or write x during the call. Approx ignores it.
+	InPlace bool
 	// Trees is the number of random projection trees whose leaves give
 	// Descent its starting lists (Dasgupta & Freund 2008); < 0 starts from
 	// random rows instead. Approx ignores it.
@@ -443,8 +448,8 @@ func refineRows(g *Graph, rows ingest.Matrix, opt ApproxOptions) (ApproxStats, e
 // NN-descent, started from the leaves of opt.Trees random projection trees
 // (rptree.go) instead of HNSW candidates, or from k distinct random rows per
 // row when opt.Trees < 0 (the starting point of Dong, Charikar & Li 2011).
-// With trees it works on a copy of the rows renumbered for locality (N·D
-// float32 more memory) and maps the graph back. Unlike Approx it is
+// With trees it works on the rows renumbered for locality, in a copy (N·D
+// float32 more memory) unless opt.InPlace, and maps the graph back. Unlike Approx it is
 // bit-reproducible: the same x, k, opt.Seed and options give the same graph
 // for any opt.Threads. opt.M, opt.Ask, opt.Shards and opt.IndexRows are
 // ignored; BuildSeconds in the stats is the time of the start. Preconditions
@@ -467,7 +472,15 @@ func Descent(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, er
 		// Work on rows renumbered in the leaf order of one more tree (see
 		// rptree.go); the graph is mapped back at the end.
 		order = buildRPTree(rows, opt.LeafRows, opt.Seed, 1<<20).perm
-		rows = permuteRows(rows, order, opt.Threads)
+		switch {
+		case opt.Metric == Cosine:
+			permuteInPlace(rows, order) // rows is already Descent's own copy
+		case opt.InPlace:
+			permuteInPlace(rows, order)
+			defer permuteInPlace(rows, inverse(order))
+		default:
+			rows = permuteRows(rows, order, opt.Threads)
+		}
 		rpStart(g, rows, opt.Trees, opt.LeafRows, opt.Seed, opt.Threads)
 	} else {
 		randomStart(g, opt.Seed, opt.Threads)

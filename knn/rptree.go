@@ -337,3 +337,38 @@ func unpermuteGraph(g *Graph, order []int32, threads int) {
 		}
 	})
 }
+
+// permuteInPlace reorders the rows of x in place so that row t becomes the
+// former row order[t], the result permuteRows returns as a copy, by
+// following the permutation's cycles with one spare row.
+func permuteInPlace(x ingest.Matrix, order []int32) {
+	d := x.D
+	done := make([]bool, x.N)
+	tmp := make([]float32, d)
+	for s := range done {
+		if done[s] {
+			continue
+		}
+		copy(tmp, x.Data[s*d:(s+1)*d])
+		t := s
+		for {
+			done[t] = true
+			src := int(order[t])
+			if src == s {
+				copy(x.Data[t*d:(t+1)*d], tmp)
+				break
+			}
+			copy(x.Data[t*d:(t+1)*d], x.Data[src*d:(src+1)*d])
+			t = src
+		}
+	}
+}
+
+// inverse returns the inverse of the permutation order.
+func inverse(order []int32) []int32 {
+	inv := make([]int32, len(order))
+	for t, i := range order {
+		inv[i] = int32(t)
+	}
+	return inv
+}

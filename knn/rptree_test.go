@@ -351,3 +351,52 @@ func TestStopRecall(t *testing.T) {
 		}
 	}
 }
+
+// TestPermuteInPlace: permuteInPlace gives what permuteRows copies, and the
+// inverse permutation restores the rows.
+func TestPermuteInPlace(t *testing.T) {
+	x := axClustered(1000, 7, 5, 2)
+	r := rand.New(rand.NewPCG(3, 4))
+	order := make([]int32, x.N)
+	for i := range order {
+		order[i] = int32(i)
+	}
+	r.Shuffle(len(order), func(a, b int) { order[a], order[b] = order[b], order[a] })
+	want := permuteRows(x, order, 2)
+	y := ingest.Matrix{N: x.N, D: x.D, Data: slices.Clone(x.Data)}
+	permuteInPlace(y, order)
+	if !slices.Equal(y.Data, want.Data) {
+		t.Fatal("in place differs from the copy")
+	}
+	permuteInPlace(y, inverse(order))
+	if !slices.Equal(y.Data, x.Data) {
+		t.Fatal("the inverse does not restore the rows")
+	}
+}
+
+// TestDescentInPlace: with InPlace, Descent returns the same graph bits as
+// with a copy, and leaves x as it found it; under Cosine too.
+func TestDescentInPlace(t *testing.T) {
+	const k = 10
+	x := axClustered(3000, 8, 6, 14)
+	orig := slices.Clone(x.Data)
+	for _, m := range []Metric{Euclidean, Cosine} {
+		opt := DefaultApprox(x.N, k)
+		opt.Metric = m
+		ref, _, err := Descent(x, k, opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		opt.InPlace = true
+		got, _, err := Descent(x, k, opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !slices.Equal(got.Index, ref.Index) || !slices.Equal(got.Dist2, ref.Dist2) {
+			t.Errorf("%v: InPlace changed the graph", m)
+		}
+		if !slices.Equal(x.Data, orig) {
+			t.Fatalf("%v: x was not restored", m)
+		}
+	}
+}

@@ -16,6 +16,9 @@ func (j *job) approxGraph(method string, k int, opt knn.Options) (*knn.Graph, er
 	ao.Options = opt
 	ao.Seed = j.s.Seed
 	ao.StopRecall = j.s.RecallGoal
+	// Nothing else reads the table during this phase: let Descent reorder
+	// it in place rather than copy it (200 MB at 1,000,000 × 50).
+	ao.InPlace = true
 	var current string
 	var bar func(done, total int64)
 	ao.PhaseProgress = func(phase string, done, total int64) {
