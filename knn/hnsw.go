@@ -340,27 +340,11 @@ func Approx(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, err
 				}
 			}
 			keys = sortRow(cand, cd, keys)
-			if len(cand) > opt.Ask {
-				for _, j := range cand[opt.Ask:] {
-					delete(seen, j)
-				}
-				cand, cd = cand[:opt.Ask], cd[:opt.Ask]
-			}
-			r := newRowRand(opt.Seed, 1<<40, uint64(i))
-			for len(cand) < k {
-				j := int32(r.intn(n))
-				if int(j) == i {
-					continue
-				}
-				if _, ok := seen[j]; ok {
-					continue
-				}
-				seen[j] = struct{}{}
-				cand = append(cand, j)
-				cd = append(cd, dist2(xi, rows.Data[int(j)*rows.D:(int(j)+1)*rows.D]))
-			}
-			copy(g.Index[i*k:(i+1)*k], cand)
-			copy(g.Dist2[i*k:(i+1)*k], cd)
+			cand = cand[:min(len(cand), opt.Ask)]
+			// Random rows up to k; refinement recomputes every distance.
+			row := g.Index[i*k : (i+1)*k]
+			copy(row, cand)
+			fillRandom(row, len(cand), i, n, opt.Seed^0x41f7, seen)
 		}
 		qmu.Lock()
 		queried += int64(hi - lo)
