@@ -115,8 +115,10 @@ func splitRows(x ingest.Matrix, rows []int32, side []bool, w []float32, r *rowRa
 
 // rpStart fills g.Index (g.N rows of g.K) with starting lists from trees
 // random projection trees of at most leaf rows each, built concurrently on
-// up to threads goroutines, and g.Dist2 with their dist2 distances; rows are
-// sorted by (distance, index).
+// up to threads goroutines. A row's leaf-mates come first, sorted by
+// (distance, index) with their dist2 distances in g.Dist2; random rows fill
+// the rest of a row that has fewer than k of them, at distance +Inf (refine
+// recomputes every distance and sorts the rows again).
 //
 // The trees are taken one after the other. Within a tree the leaves are
 // disjoint, so they are processed in parallel without locks: a leaf's rows
