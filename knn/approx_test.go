@@ -490,20 +490,24 @@ func TestApproxInsertOrderFree(t *testing.T) {
 	}
 }
 
-// TestApproxRestoresGCPercent: Approx lowers GOGC while it queries the index
-// (see hnsw.go) and must leave the caller's setting as it found it, including
-// a setting stricter than its own and a collector turned off (−1).
+// TestApproxRestoresGCPercent: Approx lowers GOGC while it queries the index,
+// Descent while it runs (see hnsw.go); both must leave the caller's setting as
+// they found it, including a setting stricter than theirs and a collector
+// turned off (−1).
 func TestApproxRestoresGCPercent(t *testing.T) {
 	x := axClustered(400, 4, 3, 5)
-	for _, gc := range []int{100, 50, queryGCPercent - 10, -1} {
-		prev := debug.SetGCPercent(gc)
-		_, _, err := Approx(x, 5, DefaultApprox(x.N, 5))
-		got := debug.SetGCPercent(prev)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if got != gc {
-			t.Errorf("GOGC %d before Approx, %d after", gc, got)
+	builds := map[string]func(ingest.Matrix, int, ApproxOptions) (*Graph, ApproxStats, error){"Approx": Approx, "Descent": Descent}
+	for name, build := range builds {
+		for _, gc := range []int{100, 50, queryGCPercent - 10, -1} {
+			prev := debug.SetGCPercent(gc)
+			_, _, err := build(x, 5, DefaultApprox(x.N, 5))
+			got := debug.SetGCPercent(prev)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if got != gc {
+				t.Errorf("GOGC %d before %s, %d after", gc, name, got)
+			}
 		}
 	}
 }

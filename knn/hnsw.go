@@ -66,7 +66,7 @@ import (
 // It is therefore safe from many goroutines once all Adds have returned.
 
 // queryGCPercent is the GOGC value Approx sets while it builds and queries
-// the index (see Approx).
+// the index, and Descent while it runs (see Approx).
 const queryGCPercent = 20
 
 // ApproxOptions configures Approx and Refine. The zero value of a field means
@@ -269,11 +269,7 @@ func Approx(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, err
 	// live heap is mostly pointer-free arrays, so a collection is cheap. A
 	// stricter setting of the caller (or GC off) is kept, and the caller's
 	// setting is restored before the refinement, which makes little garbage.
-	oldGC := debug.SetGCPercent(queryGCPercent)
-	if oldGC < queryGCPercent {
-		debug.SetGCPercent(oldGC)
-	}
-	restoreGC := sync.OnceFunc(func() { debug.SetGCPercent(oldGC) })
+	restoreGC := sync.OnceFunc(lowerGC())
 	defer restoreGC()
 
 	// Build: shards concurrently, each single-threaded inside the library.
@@ -391,6 +387,17 @@ func Refine(g *Graph, x ingest.Matrix, opt ApproxOptions) (ApproxStats, error) {
 	return refineRows(g, rows, opt)
 }
 
+// lowerGC sets the process-wide GOGC to queryGCPercent unless it is already
+// lower (or off), and returns the function that restores the caller's
+// setting.
+func lowerGC() func() {
+	old := debug.SetGCPercent(queryGCPercent)
+	if old < queryGCPercent {
+		debug.SetGCPercent(old)
+	}
+	return func() { debug.SetGCPercent(old) }
+}
+
 // probeSeed is mixed into ApproxOptions.Seed to draw the stopping sample, so
 // that it is not the sample of a later Recall check with the same seed.
 const probeSeed = 0x7e1a5b3c9d2f4e61
@@ -436,8 +443,9 @@ func refineRows(g *Graph, rows ingest.Matrix, opt ApproxOptions) (ApproxStats, e
 // float32 more memory) unless opt.InPlace, and maps the graph back. Unlike Approx it is
 // bit-reproducible: the same x, k, opt.Seed and options give the same graph
 // for any opt.Threads. opt.M, opt.Ask, opt.Shards and opt.IndexRows are
-// ignored; BuildSeconds in the stats is the time of the start. Preconditions
-// as for Approx.
+// ignored; BuildSeconds in the stats is the time of the start. Like Approx
+// it lowers the process-wide GOGC while it runs and restores it after.
+// Preconditions as for Approx.
 func Descent(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, error) {
 	var st ApproxStats
 	if err := checkInput(x, k); err != nil {
@@ -448,6 +456,10 @@ func Descent(x ingest.Matrix, k int, opt ApproxOptions) (*Graph, ApproxStats, er
 	if err != nil {
 		return nil, st, fmt.Errorf("neighbours by NN-descent: %w", err)
 	}
+	// The start and the probe leave garbage (trees, sort keys, the exact
+	// search's copy of the rows) while the refinement's arrays are being
+	// allocated: collect more often, as Approx does while it queries.
+	defer lowerGC()()
 	n := x.N
 	g := &Graph{N: n, K: k, Index: make([]int32, n*k), Dist2: make([]float32, n*k)}
 	t0 := time.Now()
