@@ -299,8 +299,9 @@ func permuteRows(x ingest.Matrix, order []int32, threads int) ingest.Matrix {
 
 // unpermuteGraph turns g, a graph of the rows of permuteRows(x, order), into
 // the graph of x in place: neighbour numbers are mapped through order, row t
-// moves to row order[t] (by following the permutation's cycles), and rows are
-// sorted again by (distance, index), since ties now rank by other numbers.
+// moves to row order[t], and rows with equal distances are sorted again by
+// (distance, index), since their ties now rank by other numbers (rows come
+// sorted by distance from refine, so the others need no sort).
 func unpermuteGraph(g *Graph, order []int32, threads int) {
 	n, k := g.N, g.K
 	forBlocks(n, descentBlock, threads, func(lo, hi int) {
@@ -308,59 +309,47 @@ func unpermuteGraph(g *Graph, order []int32, threads int) {
 			g.Index[e] = order[g.Index[e]]
 		}
 	})
-	done := make([]bool, n)
-	ci := make([]int32, k)
-	cd := make([]float32, k)
-	for s := 0; s < n; s++ {
-		if done[s] {
-			continue
-		}
-		copy(ci, g.Index[s*k:(s+1)*k])
-		copy(cd, g.Dist2[s*k:(s+1)*k])
-		p := s
-		for {
-			q := int(order[p])
-			done[q] = true
-			// The carried row belongs at q; take out what was there.
-			for j := 0; j < k; j++ {
-				ci[j], g.Index[q*k+j] = g.Index[q*k+j], ci[j]
-				cd[j], g.Dist2[q*k+j] = g.Dist2[q*k+j], cd[j]
-			}
-			if q == s {
-				break
-			}
-			p = q
-		}
-	}
+	inv := inverse(order) // row t moves to order[t]: row u takes row inv[u]
+	gatherRows(g.Index, k, inv)
+	gatherRows(g.Dist2, k, inv)
 	forBlocks(n, descentBlock, threads, func(lo, hi int) {
 		var keys []uint64
 		for i := lo; i < hi; i++ {
-			keys = sortRow(g.Index[i*k:(i+1)*k], g.Dist2[i*k:(i+1)*k], keys)
+			d := g.Dist2[i*k : (i+1)*k]
+			for j := 1; j < k; j++ {
+				if d[j] == d[j-1] {
+					keys = sortRow(g.Index[i*k:(i+1)*k], d, keys)
+					break
+				}
+			}
 		}
 	})
 }
 
 // permuteInPlace reorders the rows of x in place so that row t becomes the
-// former row order[t], the result permuteRows returns as a copy, by
+// former row order[t], the result permuteRows returns as a copy.
+func permuteInPlace(x ingest.Matrix, order []int32) { gatherRows(x.Data, x.D, order) }
+
+// gatherRows reorders the rows of width w of data in place so that row t
+// becomes the former row order[t] (order a permutation of the rows), by
 // following the permutation's cycles with one spare row.
-func permuteInPlace(x ingest.Matrix, order []int32) {
-	d := x.D
-	done := make([]bool, x.N)
-	tmp := make([]float32, d)
+func gatherRows[T any](data []T, w int, order []int32) {
+	done := make([]bool, len(order))
+	tmp := make([]T, w)
 	for s := range done {
 		if done[s] {
 			continue
 		}
-		copy(tmp, x.Data[s*d:(s+1)*d])
+		copy(tmp, data[s*w:(s+1)*w])
 		t := s
 		for {
 			done[t] = true
 			src := int(order[t])
 			if src == s {
-				copy(x.Data[t*d:(t+1)*d], tmp)
+				copy(data[t*w:(t+1)*w], tmp)
 				break
 			}
-			copy(x.Data[t*d:(t+1)*d], x.Data[src*d:(src+1)*d])
+			copy(data[t*w:(t+1)*w], data[src*w:(src+1)*w])
 			t = src
 		}
 	}

@@ -400,3 +400,19 @@ func TestDescentInPlace(t *testing.T) {
 		}
 	}
 }
+
+// TestDescentTiesSorted: with duplicate rows many distances tie, and the
+// graph mapped back from the renumbered rows must still rank ties by the
+// original row numbers (axCheckGraph checks the order (distance, index)).
+func TestDescentTiesSorted(t *testing.T) {
+	base := axClustered(80, 6, 4, 3)
+	x := ingest.Matrix{N: base.N * 12, D: base.D}
+	for c := 0; c < 12; c++ {
+		x.Data = append(x.Data, base.Data...)
+	}
+	g, _, err := Descent(x, 15, DefaultApprox(x.N, 15))
+	if err != nil {
+		t.Fatal(err)
+	}
+	axCheckGraph(t, g, x, 15)
+}
