@@ -5,10 +5,13 @@ import (
 	"math"
 	"math/rand/v2"
 	"testing"
+
+	"nightjar/internal/core"
 )
 
 // Benchmark inputs are synthetic: a random sparse P with k ≈ 90 neighbours
-// per row before symmetrisation (k = 3·perplexity 30, DESIGN.md), and a map of
+// per row before symmetrisation (k = 3·perplexity 30, the usual neighbour
+// count for perplexity 30; van der Maaten 2014), and a map of
 // 20 Gaussian clusters with centres in [−S, S]^d and sd s, S = 40·√(N/10^5),
 // s = 3·√(N/10^5): about the extent of a converged map (it grows like √N at
 // constant density; common practice, from memory). Run with -count 5 and take
@@ -16,10 +19,10 @@ import (
 
 var benchCache = map[string]any{}
 
-func benchP(b *testing.B, n, k int) Affinities {
+func benchP(b *testing.B, n, k int) core.CSR {
 	key := fmt.Sprintf("P%d/%d", n, k)
 	if v, ok := benchCache[key]; ok {
-		return v.(Affinities)
+		return v.(core.CSR)
 	}
 	b.Helper()
 	rng := rand.New(rand.NewPCG(42, uint64(n)))
@@ -109,7 +112,7 @@ func BenchmarkRepulsion(b *testing.B) {
 				b.Run(fmt.Sprintf("N=%d/%v/threads=%d", n, m, threads), func(b *testing.B) {
 					params := DefaultParams(n)
 					params.Method, params.Threads = m, threads
-					e, err := newEngine(Affinities{N: n}, params)
+					e, err := newEngine(core.CSR{N: n}, params)
 					if err != nil {
 						b.Fatal(err)
 					}

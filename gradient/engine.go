@@ -3,8 +3,9 @@ package gradient
 import (
 	"fmt"
 	"math"
-	"sync"
-	"sync/atomic"
+
+	"nightjar/internal/core"
+	"nightjar/internal/par"
 )
 
 // Block sizes of the parallel loops. They fix the order of every reduction,
@@ -15,48 +16,6 @@ const (
 	elemBlock = 4096 // embedding elements per block in the optimiser update
 	exBlock   = 64   // rows per block in the exact O(N²) repulsion
 )
-
-// forBlocks cuts [0, n) into blocks of size block and calls fn(worker, b, lo,
-// hi) for each block b = lo/block, from at most threads goroutines; worker is
-// in [0, threads) and identifies per-goroutine scratch space. Blocks are taken
-// in any order: fn must write only to block- or row-owned places.
-func forBlocks(n, block, threads int, fn func(worker, b, lo, hi int)) {
-	nb := (n + block - 1) / block
-	if threads > nb {
-		threads = nb
-	}
-	if threads <= 1 {
-		for b := 0; b < nb; b++ {
-			fn(0, b, b*block, min(n, (b+1)*block))
-		}
-		return
-	}
-	var next atomic.Int64
-	var wg sync.WaitGroup
-	wg.Add(threads)
-	for w := 0; w < threads; w++ {
-		go func(w int) {
-			defer wg.Done()
-			for {
-				b := int(next.Add(1) - 1)
-				if b >= nb {
-					return
-				}
-				fn(w, b, b*block, min(n, (b+1)*block))
-			}
-		}(w)
-	}
-	wg.Wait()
-}
-
-// sumBlocks adds s in index order (block order).
-func sumBlocks(s []float64) float64 {
-	var t float64
-	for _, v := range s {
-		t += v
-	}
-	return t
-}
 
 // kernel returns w = (1 + d2/α)^(−α) and w^(1+1/α) = w/(1 + d2/α) for the
 // squared distance d2; invA = 1/α.
@@ -91,7 +50,7 @@ func powNeg(t, alpha float64) float64 {
 // engine computes gradients for one P and one set of parameters, keeping its
 // scratch space between calls.
 type engine struct {
-	p       Affinities
+	p       core.CSR
 	n, dims int
 	alpha   float64
 	theta   float64
@@ -105,15 +64,15 @@ type engine struct {
 	grid   *fftGrid
 }
 
-func newEngine(p Affinities, params Params) (*engine, error) {
+func newEngine(p core.CSR, params Params) (*engine, error) {
 	e := &engine{
 		p: p, n: p.N, dims: params.Dims, alpha: params.Dof, theta: params.Theta,
-		threads: params.Threads, method: params.Resolve(p.N),
+		threads: params.threads(), method: params.Resolve(p.N),
 		rep: make([]float64, p.N*params.Dims),
 	}
 	switch e.method {
 	case Tree:
-		e.tree = newBHTree(p.N, params.Dims, params.Threads)
+		e.tree = newBHTree(p.N, params.Dims, e.threads)
 	case Grid:
 		g, err := newFFTGrid(p.N, params)
 		if err != nil {
@@ -154,7 +113,7 @@ func (e *engine) attraction(y []float64, ca, cr float64, grad []float64) {
 	rep := e.rep
 	switch e.dims {
 	case 2:
-		forBlocks(e.n, rowBlock, e.threads, func(_, _, lo, hi int) {
+		par.Blocks(e.n, rowBlock, e.threads, func(_, _, lo, hi int) {
 			for i := lo; i < hi; i++ {
 				yx, yy := y[2*i], y[2*i+1]
 				var fx, fy float64
@@ -170,7 +129,7 @@ func (e *engine) attraction(y []float64, ca, cr float64, grad []float64) {
 			}
 		})
 	case 3:
-		forBlocks(e.n, rowBlock, e.threads, func(_, _, lo, hi int) {
+		par.Blocks(e.n, rowBlock, e.threads, func(_, _, lo, hi int) {
 			for i := lo; i < hi; i++ {
 				yx, yy, yz := y[3*i], y[3*i+1], y[3*i+2]
 				var fx, fy, fz float64
@@ -199,7 +158,7 @@ func (e *engine) exactRepulsion(y []float64) float64 {
 	alpha, invA := e.alpha, 1/e.alpha
 	nb := (n + exBlock - 1) / exBlock
 	e.zBlock = growFloats(e.zBlock, nb)
-	forBlocks(n, exBlock, e.threads, func(_, b, lo, hi int) {
+	par.Blocks(n, exBlock, e.threads, func(_, b, lo, hi int) {
 		var zb float64
 		var f [3]float64
 		for i := lo; i < hi; i++ {
@@ -228,7 +187,7 @@ func (e *engine) exactRepulsion(y []float64) float64 {
 		}
 		e.zBlock[b] = zb
 	})
-	return sumBlocks(e.zBlock[:nb])
+	return par.Sum(e.zBlock[:nb])
 }
 
 // sumPLogW returns Σ_ij p_ij ln w_ij with w evaluated at y − shift (shift may
@@ -240,7 +199,7 @@ func (e *engine) sumPLogW(y, shift []float64) float64 {
 	alpha, invA := e.alpha, 1/e.alpha
 	nb := (e.n + rowBlock - 1) / rowBlock
 	e.kBlock = growFloats(e.kBlock, nb)
-	forBlocks(e.n, rowBlock, e.threads, func(_, b, lo, hi int) {
+	par.Blocks(e.n, rowBlock, e.threads, func(_, b, lo, hi int) {
 		var s float64
 		for i := lo; i < hi; i++ {
 			for k := off[i]; k < off[i+1]; k++ {
@@ -259,13 +218,13 @@ func (e *engine) sumPLogW(y, shift []float64) float64 {
 		}
 		e.kBlock[b] = s
 	})
-	return sumBlocks(e.kBlock[:nb])
+	return par.Sum(e.kBlock[:nb])
 }
 
 // sumPLogP returns Σ p ln p over the non-zeros of P (0 ln 0 = 0) and Σ p.
 // KL = Σ p ln p − Σ p ln w + (Σ p) ln Z is then exactly Σ p ln(p/q) for the
 // P given, even when its float32 values do not sum to 1 to the last bit.
-func sumPLogP(p Affinities) (plogp, sum float64) {
+func sumPLogP(p core.CSR) (plogp, sum float64) {
 	for _, v := range p.Vals {
 		if v > 0 {
 			x := float64(v)
@@ -296,7 +255,7 @@ func growFloats(s []float64, n int) []float64 {
 // report invalid parameters, an invalid P, mismatched lengths or a
 // non-finite Z. It allocates its scratch space on every call; use an
 // Optimizer for repeated evaluations.
-func Gradient(p Affinities, y []float64, params Params, exaggeration float64, grad []float64) (kl float64, err error) {
+func Gradient(p core.CSR, y []float64, params Params, exaggeration float64, grad []float64) (kl float64, err error) {
 	if err := params.Validate(p.N); err != nil {
 		return 0, err
 	}
@@ -326,7 +285,7 @@ func Gradient(p Affinities, y []float64, params Params, exaggeration float64, gr
 // degrees of freedom, computing Z over all N(N−1) ordered pairs: an O(N²)
 // reference. It panics if len(y) != p.N×dims, dims is not 2 or 3, or
 // N > ExactLimit.
-func KLExact(p Affinities, y []float64, dims int, dof float64) float64 {
+func KLExact(p core.CSR, y []float64, dims int, dof float64) float64 {
 	if dims != 2 && dims != 3 {
 		panic("gradient: KLExact dims must be 2 or 3")
 	}

@@ -5,14 +5,16 @@ import (
 	"math"
 
 	"nightjar/gradient"
+	"nightjar/internal/core"
 )
 
 // Two points with p_12 = p_21 = 1/2: Q equals P wherever the points are, so
 // KL = 0 and the gradient vanishes. With exaggeration ρ = 12 the gradient is
 // 4(ρ·½ − ½)·w·(y_1 − y_2) = 22·w·(y_1 − y_2); at distance 1, w = ½, giving
-// (−11, 0) for the first point (worked by hand from MATH.md).
+// (−11, 0) for the first point (worked by hand from the gradient formula of
+// van der Maaten & Hinton 2008, eq. 5, with the attractive term times ρ).
 func ExampleGradient() {
-	p := gradient.Affinities{N: 2, Offsets: []int64{0, 1, 2}, Cols: []int32{1, 0}, Vals: []float32{0.5, 0.5}}
+	p := core.CSR{N: 2, Offsets: []int64{0, 1, 2}, Cols: []int32{1, 0}, Vals: []float32{0.5, 0.5}}
 	y := []float64{0, 0, 1, 0}
 	params := gradient.DefaultParams(2)
 	grad := make([]float64, 4)
@@ -48,7 +50,7 @@ func ExampleOptimizer() {
 	for k := range vals {
 		vals[k] = 1 / float32(len(cols))
 	}
-	p := gradient.Affinities{N: n, Offsets: off, Cols: cols, Vals: vals}
+	p := core.CSR{N: n, Offsets: off, Cols: cols, Vals: vals}
 
 	y0 := make([]float64, 2*n)
 	for i := range n { // a deterministic spiral as the start

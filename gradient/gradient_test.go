@@ -8,6 +8,8 @@ import (
 	"testing"
 
 	"gonum.org/v1/gonum/stat"
+
+	"nightjar/internal/core"
 )
 
 // TestGradientFiniteDifference checks the analytic gradient against central
@@ -181,7 +183,7 @@ func TestGridAccuracy(t *testing.T) {
 			y := clusteredY(n, 2, 12, tc.spread, 2.5, rand.New(rand.NewPCG(7, uint64(n))))
 			fe, ze := repulsiveForces(t, y, 2, 1, 0, Exact, 2)
 			params := Params{Dims: 2, Dof: 1, Method: Grid, Threads: 2, GridOrder: tc.nodes, GridSpacing: tc.side}
-			e, err := newEngine(Affinities{N: n}, params)
+			e, err := newEngine(core.CSR{N: n}, params)
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -203,15 +205,14 @@ func TestGridAccuracy(t *testing.T) {
 // than GridSpacing: the result must stay close to the exact sums, only coarser
 // (reference: exact O(N²) repulsion).
 func TestGridCap(t *testing.T) {
-	defer func(old int) { gridMaxNodes = old }(gridMaxNodes)
-	gridMaxNodes = 96
 	const n = 2000
 	y := clusteredY(n, 2, 8, 30, 2.5, rand.New(rand.NewPCG(3, 3)))
 	fe, ze := repulsiveForces(t, y, 2, 1, 0, Exact, 2)
-	e, err := newEngine(Affinities{N: n}, Params{Dims: 2, Dof: 1, Method: Grid, Threads: 2})
+	e, err := newEngine(core.CSR{N: n}, Params{Dims: 2, Dof: 1, Method: Grid, Threads: 2})
 	if err != nil {
 		t.Fatal(err)
 	}
+	e.grid.maxNodes = 96
 	z := e.repulsion(y)
 	if e.grid.m > 100 || e.grid.delta <= DefaultGridSpacing {
 		t.Fatalf("cap not reached: M = %d, spacing %v", e.grid.m, e.grid.delta)
@@ -311,7 +312,7 @@ func TestMortonSpread(t *testing.T) {
 }
 
 // TestThreadsSameBits runs 20 optimiser steps with 1, 2 and 3 threads and
-// requires identical bits (DESIGN.md determinism promise; common practice).
+// requires identical bits (the package's determinism promise; common practice).
 func TestThreadsSameBits(t *testing.T) {
 	for _, tc := range []struct {
 		m    Method
@@ -361,7 +362,7 @@ func TestThreadsSameBits(t *testing.T) {
 
 // TestRestoreSameBits stops a run mid-way (inside the early phase, and after
 // it), restores the state into a fresh optimiser and requires the same bits
-// as an uninterrupted run (DESIGN.md resume promise; common practice).
+// as an uninterrupted run (the resume promise of Restore; common practice).
 func TestRestoreSameBits(t *testing.T) {
 	const n = 600
 	rng := rand.New(rand.NewPCG(9, 9))
@@ -373,7 +374,7 @@ func TestRestoreSameBits(t *testing.T) {
 	}
 }
 
-func restoreSameBits(t *testing.T, p Affinities, y0 []float64, m Method) {
+func restoreSameBits(t *testing.T, p core.CSR, y0 []float64, m Method) {
 	params := DefaultParams(p.N)
 	params.Method, params.EarlyIterations, params.Iterations, params.Threads = m, 15, 40, 2
 	params.GridMin = 60
@@ -421,7 +422,7 @@ func restoreSameBits(t *testing.T, p Affinities, y0 []float64, m Method) {
 
 // clusterGraph is a hand-made graph: c clusters of m rows, each row joined to
 // its 3 successors around a ring inside its cluster, plus 2 chords.
-func clusterGraph(c, m int) (Affinities, []int) {
+func clusterGraph(c, m int) (core.CSR, []int) {
 	var from, to []int32
 	var val []float64
 	label := make([]int, c*m)
@@ -560,7 +561,6 @@ func TestValidate(t *testing.T) {
 		{"MomentumEarly", 100, func(p *Params) { p.MomentumEarly = 1 }},
 		{"MomentumLate", 100, func(p *Params) { p.MomentumLate = -0.1 }},
 		{"MinGain", 100, func(p *Params) { p.MinGain = 0 }},
-		{"Threads", 100, func(p *Params) { p.Threads = 0 }},
 		{"Method", ExactLimit + 1, func(p *Params) { p.Method = Exact }},
 		{"Method", 100, func(p *Params) { p.Method = Method(9) }},
 		{"Method", 100, func(p *Params) { p.Method, p.Dims = Grid, 3 }},
@@ -575,39 +575,79 @@ func TestValidate(t *testing.T) {
 	if err := DefaultParams(5).Validate(5); err != nil {
 		t.Errorf("defaults rejected: %v", err)
 	}
+	for _, threads := range []int{0, -3} { // below 1 means 1
+		p := DefaultParams(5)
+		p.Threads = threads
+		if err := p.Validate(5); err != nil {
+			t.Errorf("Threads = %d rejected: %v", threads, err)
+		}
+	}
 }
 
-// TestAffinitiesValidate checks that malformed CSR input is refused.
-func TestAffinitiesValidate(t *testing.T) {
-	good := func() Affinities {
-		return Affinities{N: 3, Offsets: []int64{0, 1, 3, 4}, Cols: []int32{1, 0, 2, 1}, Vals: []float32{0.25, 0.25, 0.25, 0.25}}
+// TestThreadsBelowOne checks that Threads below 1 runs like Threads = 1, to
+// the bit, for the methods that keep per-thread scratch space (the promise
+// of Params.Threads; common practice).
+func TestThreadsBelowOne(t *testing.T) {
+	const n = 1200
+	rng := rand.New(rand.NewPCG(8, 8))
+	p := randomP(n, 6, rng)
+	y := clusteredY(n, 2, 4, 5, 1, rng)
+	for _, m := range []Method{Exact, Tree, Grid} {
+		var ref []float64
+		for _, threads := range []int{1, 0, -2} {
+			params := DefaultParams(n)
+			params.Method, params.Threads, params.GridMin = m, threads, 60
+			g := make([]float64, 2*n)
+			if _, err := Gradient(p, y, params, 1, g); err != nil {
+				t.Fatalf("%v, threads=%d: %v", m, threads, err)
+			}
+			if threads == 1 {
+				ref = g
+			} else if k := sameBits(g, ref); k >= 0 {
+				t.Errorf("%v: threads=%d differs from 1 thread at %d", m, threads, k)
+			}
+		}
 	}
-	if err := good().Validate(); err != nil {
+}
+
+// TestMalformedPRefused checks that New and Gradient refuse malformed CSR
+// input (the checks are those of core.CSR.Validate).
+func TestMalformedPRefused(t *testing.T) {
+	good := func() core.CSR {
+		return core.CSR{N: 3, Offsets: []int64{0, 1, 3, 4}, Cols: []int32{1, 0, 2, 1}, Vals: []float32{0.25, 0.25, 0.25, 0.25}}
+	}
+	params := DefaultParams(3)
+	y := []float64{0, 0, 1, 0, 0, 1}
+	if _, err := New(good(), y, params); err != nil {
 		t.Fatalf("good P refused: %v", err)
 	}
 	for _, tc := range []struct {
 		name string
-		mod  func(*Affinities)
+		mod  func(*core.CSR)
 	}{
-		{"offsets length", func(a *Affinities) { a.Offsets = a.Offsets[:3] }},
-		{"column range", func(a *Affinities) { a.Cols[0] = 3 }},
-		{"diagonal", func(a *Affinities) { a.Cols[0] = 0 }},
-		{"order", func(a *Affinities) { a.Cols[1], a.Cols[2] = 2, 0 }},
-		{"negative", func(a *Affinities) { a.Vals[0], a.Vals[1] = -0.25, 0.75 }},
-		{"sum", func(a *Affinities) { a.Vals[0] = 0.5 }},
-		{"one row", func(a *Affinities) { *a = Affinities{N: 1, Offsets: []int64{0, 0}} }},
+		{"offsets length", func(a *core.CSR) { a.Offsets = a.Offsets[:3] }},
+		{"column range", func(a *core.CSR) { a.Cols[0] = 3 }},
+		{"diagonal", func(a *core.CSR) { a.Cols[0] = 0 }},
+		{"order", func(a *core.CSR) { a.Cols[1], a.Cols[2] = 2, 0 }},
+		{"negative", func(a *core.CSR) { a.Vals[0], a.Vals[1] = -0.25, 0.75 }},
+		{"sum", func(a *core.CSR) { a.Vals[0] = 0.5 }},
+		{"one row", func(a *core.CSR) { *a = core.CSR{N: 1, Offsets: []int64{0, 0}} }},
 	} {
 		a := good()
 		tc.mod(&a)
-		if err := a.Validate(); err == nil {
-			t.Errorf("%s: accepted", tc.name)
+		yy := y[:a.N*2]
+		if _, err := New(a, yy, DefaultParams(a.N)); err == nil {
+			t.Errorf("%s: New accepted", tc.name)
+		}
+		if _, err := Gradient(a, yy, DefaultParams(a.N), 1, make([]float64, len(yy))); err == nil {
+			t.Errorf("%s: Gradient accepted", tc.name)
 		}
 	}
 }
 
 // TestAutoRules checks the learning-rate rule, max(N/ρ, 200) in units of a
-// gradient without the 4 (Belkina et al. 2019; Kobak & Berens 2019;
-// DESIGN.md floor), worked by hand, and the method choice.
+// gradient without the 4 (Belkina et al. 2019; Kobak & Berens 2019; the
+// classic 200 as floor, common practice), worked by hand, and the method choice.
 func TestAutoRules(t *testing.T) {
 	for _, tc := range []struct {
 		n    int

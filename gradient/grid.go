@@ -4,10 +4,12 @@ import (
 	"math"
 
 	"gonum.org/v1/gonum/dsp/fourier"
+
+	"nightjar/internal/par"
 )
 
 // FFT-interpolated repulsion for 2-D maps with α = 1 (Linderman et al. 2019,
-// Nature Methods; MATH.md).
+// Nature Methods 16; see the package documentation).
 //
 // The repulsion needs, for every point i, F_i = Σ_j K2(y_i − y_j)(y_i − y_j)
 // with K2 = 1/(1+d²)², and the total Z = Σ_{i≠j} K1(y_i − y_j) with
@@ -20,8 +22,8 @@ import (
 // interpolated back to the points with the same weights. Kx(0) = 0, so a
 // point exerts no force on itself. (Splitting F_i as
 // y_i Σ_j K2 − Σ_j K2 y_j instead needs three charges and loses digits to
-// cancellation far from the centre; it was measured about twice as accurate
-// on the test map below, but costs twice the FFTs.)
+// cancellation far from the centre; measured, it is about twice as accurate
+// on the test map below but costs twice the FFTs.)
 //
 // The p nodes of a point are centred on it: for even p the point lies
 // between the two middle nodes, for odd p within half a spacing of the
@@ -30,8 +32,8 @@ import (
 // (9/16), against 6.6 δ⁴ when each point uses the fixed nodes of the
 // interval it falls in, which puts points outside the span of their nodes
 // near interval edges. Measured on 10,000 points (TestGridAccuracy), the
-// force error at p = 3, δ = 1/3 went from 1.1e-2 (fixed interval nodes,
-// three charges) to 5.5e-3 (centred, direct kernel).
+// force error at p = 3, δ = 1/3 is 5.5e-3 with centred nodes and the direct
+// kernel, against 1.1e-2 with fixed interval nodes and three charges.
 //
 // Z needs no per-point potential: Σ_i Σ_j K̃1(y_i, y_j) = Σ_a c(a)(K1 ⊛ c)(a)
 // over the nodes, which by Parseval is (1/S) Σ_f |Ĉ(f)|² K̂1(f) (S = (2M)²
@@ -62,12 +64,12 @@ const (
 	gridSpreadRows     = 8    // node rows per spreading block (≥ GridOrder − 1)
 )
 
-// gridMaxNodes caps the nodes per axis, M: the grid's memory is about
-// 176·M² bytes (0.74 GB at M = 2048; 0.1 GB at M = 760, about what a
-// 10^6-row map needs). A map wider than gridMaxNodes × GridSpacing gets a
-// wider spacing, and so a coarser approximation. A variable so that tests can
-// reach the cap on small maps.
-var gridMaxNodes = 2048
+// gridMaxNodes is the default cap on the nodes per axis, M (fftGrid.maxNodes):
+// the grid's memory is about 176·M² bytes (0.74 GB at M = 2048; 0.1 GB at
+// M = 760, about what a 10^6-row map needs). A map wider than
+// maxNodes × GridSpacing gets a wider spacing, and so a coarser
+// approximation.
+const gridMaxNodes = 2048
 
 type fftWorker struct {
 	rfft *fourier.FFT
@@ -79,6 +81,7 @@ type fftWorker struct {
 
 type fftGrid struct {
 	n, p, minNodes, threads int
+	maxNodes                int     // cap on the nodes per axis: gridMaxNodes; tests lower it to reach the cap on small maps
 	spacing                 float64 // largest node spacing
 
 	m, m2       int // nodes per axis, padded FFT size
@@ -103,7 +106,10 @@ type fftGrid struct {
 }
 
 func newFFTGrid(n int, params Params) (*fftGrid, error) {
-	g := &fftGrid{n: n, p: params.GridOrder, minNodes: params.GridMin, spacing: params.GridSpacing, threads: params.Threads}
+	g := &fftGrid{
+		n: n, p: params.GridOrder, minNodes: params.GridMin, maxNodes: gridMaxNodes,
+		spacing: params.GridSpacing, threads: params.threads(),
+	}
 	if g.p == 0 {
 		g.p = DefaultGridOrder
 	}
@@ -188,8 +194,8 @@ func (g *fftGrid) setup(y []float64) {
 	// Nodes to span L plus a margin of p/2 + 1 spacings on each side, so
 	// every stencil fits.
 	m := int(math.Ceil(L/delta)) + g.p + 2
-	if m > gridMaxNodes {
-		m = gridMaxNodes
+	if m > g.maxNodes {
+		m = g.maxNodes
 		delta = L / float64(m-g.p-2)
 	}
 	for !smooth(2 * m) {
@@ -256,7 +262,7 @@ func (g *fftGrid) kernelSpectra() {
 	}
 	scratch := g.spec[0] // overwritten by every convolve anyway
 	for k := range g.ks {
-		forBlocks(m2, gridRowBlock, g.threads, func(w, _, lo, hi int) {
+		par.Blocks(m2, gridRowBlock, g.threads, func(w, _, lo, hi int) {
 			wk := &g.workers[w]
 			for v := lo; v < hi; v++ {
 				dv := signed(v)
@@ -279,7 +285,7 @@ func (g *fftGrid) kernelSpectra() {
 				wk.rfft.Coefficients(scratch[v*mc:(v+1)*mc], wk.row)
 			}
 		})
-		forBlocks(mc, 1, g.threads, func(w, _, c, _ int) {
+		par.Blocks(mc, 1, g.threads, func(w, _, c, _ int) {
 			wk := &g.workers[w]
 			col := wk.cols[:m2]
 			for r := 0; r < m2; r++ {
@@ -302,7 +308,7 @@ func (g *fftGrid) kernelSpectra() {
 func (g *fftGrid) spread(y []float64) {
 	n, p, m := g.n, g.p, g.m
 	inv := 1 / g.delta
-	forBlocks(n, rowBlock, g.threads, func(_, _, lo, hi int) {
+	par.Blocks(n, rowBlock, g.threads, func(_, _, lo, hi int) {
 		for i := lo; i < hi; i++ {
 			bx, ux := g.stencil((y[2*i] - g.lo[0]) * inv)
 			by, uy := g.stencil((y[2*i+1] - g.lo[1]) * inv)
@@ -333,7 +339,7 @@ func (g *fftGrid) spread(y []float64) {
 	// beyond its end, so only blocks two apart may run together.
 	nb := (m + gridSpreadRows - 1) / gridSpreadRows
 	for parity := range 2 {
-		forBlocks((nb+1-parity)/2, 1, g.threads, func(_, b, _, _ int) {
+		par.Blocks((nb+1-parity)/2, 1, g.threads, func(_, b, _, _ int) {
 			r0 := (2*b + parity) * gridSpreadRows
 			r1 := min(m, r0+gridSpreadRows)
 			for _, i32 := range g.order[rs[r0]:rs[r1]] {
@@ -356,7 +362,7 @@ func (g *fftGrid) spread(y []float64) {
 func (g *fftGrid) convolve() float64 {
 	m, m2, mc := g.m, g.m2, g.m+1
 	// Rows: real FFTs of the m non-zero rows of the charges; rows ≥ m are 0.
-	forBlocks(m2, gridRowBlock, g.threads, func(w, _, lo, hi int) {
+	par.Blocks(m2, gridRowBlock, g.threads, func(w, _, lo, hi int) {
 		wk := &g.workers[w]
 		for r := lo; r < hi; r++ {
 			dst := g.spec[0][r*mc : (r+1)*mc]
@@ -369,56 +375,14 @@ func (g *fftGrid) convolve() float64 {
 			wk.rfft.Coefficients(dst, wk.row)
 		}
 	})
-	// Columns, gridColBlock at a time: forward FFT, Parseval sum for Z,
-	// products with K̂x and K̂y (i·s: (a+ib)·is = −bs + ias), inverse FFTs.
+	// Columns, gridColBlock at a time (columnBlock).
 	nb := (mc + gridColBlock - 1) / gridColBlock
-	forBlocks(mc, gridColBlock, g.threads, func(w, b, lo, hi int) {
-		wk := &g.workers[w]
-		nc := hi - lo
-		col := func(k, cc int) []complex128 { return wk.cols[(k*gridColBlock+cc)*m2 : (k*gridColBlock+cc+1)*m2] }
-		for r := 0; r < m2; r++ {
-			row := g.spec[0][r*mc+lo : r*mc+hi]
-			for cc := 0; cc < nc; cc++ {
-				col(0, cc)[r] = row[cc]
-			}
-		}
-		var zb float64
-		for cc := 0; cc < nc; cc++ {
-			c := lo + cc
-			wgt := 2.0 // the half spectrum stands for columns c and 2M−c
-			if c == 0 || c == m {
-				wgt = 1
-			}
-			wk.cfft.Coefficients(wk.tmp, col(0, cc))
-			cx, cy := col(1, cc), col(2, cc)
-			var zc float64
-			for r, a := range wk.tmp {
-				e := r*mc + c
-				re, im := real(a), imag(a)
-				zc += (re*re + im*im) * g.ks[0][e]
-				sx, sy := g.ks[1][e], g.ks[2][e]
-				cx[r] = complex(-im*sx, re*sx)
-				cy[r] = complex(-im*sy, re*sy)
-			}
-			zb += wgt * zc
-			for k := 1; k < 3; k++ {
-				wk.cfft.Sequence(wk.tmp, col(k, cc))
-				copy(col(k, cc), wk.tmp)
-			}
-		}
-		for r := 0; r < m; r++ { // only rows < m are needed back
-			for k := 1; k < 3; k++ {
-				row := g.spec[k][r*mc+lo : r*mc+hi]
-				for cc := 0; cc < nc; cc++ {
-					row[cc] = col(k, cc)[r]
-				}
-			}
-		}
-		g.zBlock[b] = zb
+	par.Blocks(mc, gridColBlock, g.threads, func(w, b, lo, hi int) {
+		g.zBlock[b] = g.columnBlock(&g.workers[w], lo, hi)
 	})
-	zsum := sumBlocks(g.zBlock[:nb])
+	zsum := par.Sum(g.zBlock[:nb])
 	norm := 1 / (float64(m2) * float64(m2))
-	forBlocks(m, gridRowBlock, g.threads, func(w, _, lo, hi int) {
+	par.Blocks(m, gridRowBlock, g.threads, func(w, _, lo, hi int) {
 		wk := &g.workers[w]
 		for r := lo; r < hi; r++ {
 			dst := g.pot[r*m*2 : (r+1)*m*2]
@@ -433,6 +397,56 @@ func (g *fftGrid) convolve() float64 {
 	return zsum * norm
 }
 
+// columnBlock transforms the spectrum columns [lo, hi) of the charges: a
+// forward FFT, the Parseval sum for Z, the products with K̂x and K̂y
+// (i·s: (a+ib)·is = −bs + ias) and the inverse FFTs, whose rows below m it
+// writes back to spec[1] and spec[2]. It returns the block's share of
+// Σ_f |Ĉ|² K̂1 (not yet divided by S).
+func (g *fftGrid) columnBlock(wk *fftWorker, lo, hi int) float64 {
+	m, m2, mc := g.m, g.m2, g.m+1
+	nc := hi - lo
+	col := func(k, cc int) []complex128 { return wk.cols[(k*gridColBlock+cc)*m2 : (k*gridColBlock+cc+1)*m2] }
+	for r := 0; r < m2; r++ {
+		row := g.spec[0][r*mc+lo : r*mc+hi]
+		for cc := 0; cc < nc; cc++ {
+			col(0, cc)[r] = row[cc]
+		}
+	}
+	var zb float64
+	for cc := 0; cc < nc; cc++ {
+		c := lo + cc
+		wgt := 2.0 // the half spectrum stands for columns c and 2M−c
+		if c == 0 || c == m {
+			wgt = 1
+		}
+		wk.cfft.Coefficients(wk.tmp, col(0, cc))
+		cx, cy := col(1, cc), col(2, cc)
+		var zc float64
+		for r, a := range wk.tmp {
+			e := r*mc + c
+			re, im := real(a), imag(a)
+			zc += (re*re + im*im) * g.ks[0][e]
+			sx, sy := g.ks[1][e], g.ks[2][e]
+			cx[r] = complex(-im*sx, re*sx)
+			cy[r] = complex(-im*sy, re*sy)
+		}
+		zb += wgt * zc
+		for k := 1; k < 3; k++ {
+			wk.cfft.Sequence(wk.tmp, col(k, cc))
+			copy(col(k, cc), wk.tmp)
+		}
+	}
+	for r := 0; r < m; r++ { // only rows < m are needed back
+		for k := 1; k < 3; k++ {
+			row := g.spec[k][r*mc+lo : r*mc+hi]
+			for cc := 0; cc < nc; cc++ {
+				row[cc] = col(k, cc)[r]
+			}
+		}
+	}
+	return zb
+}
+
 // repulsion writes into rep the interpolated Σ_j K2 (y_i − y_j) and returns
 // the interpolated Z = Σ_{i≠j} K1.
 func (g *fftGrid) repulsion(y, rep []float64) float64 {
@@ -444,7 +458,7 @@ func (g *fftGrid) repulsion(y, rep []float64) float64 {
 	g.spread(y)
 	z := g.convolve() - float64(g.n)
 	n, p, m := g.n, g.p, g.m
-	forBlocks(n, rowBlock, g.threads, func(_, _, lo, hi int) {
+	par.Blocks(n, rowBlock, g.threads, func(_, _, lo, hi int) {
 		for i := lo; i < hi; i++ {
 			wx, wy := g.wx[i*p:(i+1)*p], g.wy[i*p:(i+1)*p]
 			base := int(g.base[i]) * 2

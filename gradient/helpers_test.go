@@ -5,6 +5,8 @@ import (
 	"math/rand/v2"
 	"slices"
 	"testing"
+
+	"nightjar/internal/core"
 )
 
 // Test inputs are invented (random graphs and point clouds); the checks
@@ -13,7 +15,7 @@ import (
 // symmetricP builds a symmetric affinity matrix from directed edges: each
 // edge (i, j, v) adds v to p_ij and to p_ji; duplicates are summed; the
 // result is normalised to sum 1. Self-loops are dropped.
-func symmetricP(n int, from, to []int32, val []float64) Affinities {
+func symmetricP(n int, from, to []int32, val []float64) core.CSR {
 	deg := make([]int64, n+1)
 	for e := range from {
 		if from[e] == to[e] {
@@ -67,11 +69,11 @@ func symmetricP(n int, from, to []int32, val []float64) Affinities {
 	for k, v := range outV {
 		v32[k] = float32(v / total)
 	}
-	return Affinities{N: n, Offsets: off, Cols: outC, Vals: v32}
+	return core.CSR{N: n, Offsets: off, Cols: outC, Vals: v32}
 }
 
 // randomP joins each row to k random other rows with random positive weights.
-func randomP(n, k int, rng *rand.Rand) Affinities {
+func randomP(n, k int, rng *rand.Rand) core.CSR {
 	var from, to []int32
 	var val []float64
 	for i := 0; i < n; i++ {
@@ -106,7 +108,7 @@ func clusteredY(n, dims, clusters int, spread, sd float64, rng *rand.Rand) []flo
 }
 
 // dense returns P as a dense N×N matrix.
-func dense(p Affinities) []float64 {
+func dense(p core.CSR) []float64 {
 	m := make([]float64, p.N*p.N)
 	for i := 0; i < p.N; i++ {
 		for k := p.Offsets[i]; k < p.Offsets[i+1]; k++ {
@@ -158,7 +160,7 @@ func relErr(a, b []float64) float64 {
 func repulsiveForces(t testing.TB, y []float64, dims int, alpha, theta float64, m Method, threads int) ([]float64, float64) {
 	t.Helper()
 	n := len(y) / dims
-	p := Affinities{N: n, Offsets: make([]int64, n+1)}
+	p := core.CSR{N: n, Offsets: make([]int64, n+1)}
 	e, err := newEngine(p, Params{Dims: dims, Dof: alpha, Theta: theta, Method: m, Threads: threads})
 	if err != nil {
 		t.Fatal(err)

@@ -4,6 +4,9 @@ import (
 	"errors"
 	"fmt"
 	"math"
+
+	"nightjar/internal/core"
+	"nightjar/internal/par"
 )
 
 // ErrDone is returned by Step once all iterations have run.
@@ -55,7 +58,7 @@ type Optimizer struct {
 }
 
 // New returns an optimiser for P starting from y0 (N×Dims row-major, copied).
-// It validates params (Params.Validate) and P (Affinities.Validate) and
+// It validates params (Params.Validate) and P (core.CSR.Validate) and
 // checks that y0 has N×Dims finite values.
 //
 // The optimiser keeps its own copy of P with the rows renumbered so that
@@ -63,7 +66,7 @@ type Optimizer struct {
 // for 10^6 rows at perplexity 30). It does not keep p: a caller that has no
 // further use for P should drop it to save that memory. Y, State and Restore
 // use the input row order.
-func New(p Affinities, y0 []float64, params Params) (*Optimizer, error) {
+func New(p core.CSR, y0 []float64, params Params) (*Optimizer, error) {
 	if err := params.Validate(p.N); err != nil {
 		return nil, err
 	}
@@ -78,8 +81,8 @@ func New(p Affinities, y0 []float64, params Params) (*Optimizer, error) {
 		return nil, err
 	}
 	perm := localityOrder(p)
-	inv := inverse(perm)
-	p = permuteRows(p, perm, inv, params.Threads)
+	inv := par.Inverse(perm)
+	p = permuteRows(p, perm, inv, params.threads())
 	e, err := newEngine(p, params)
 	if err != nil {
 		return nil, err
@@ -94,7 +97,7 @@ func New(p Affinities, y0 []float64, params Params) (*Optimizer, error) {
 		g:      make([]float64, nd),
 		lastZ:  math.NaN(),
 	}
-	gatherRows(o.y, y0, perm, o.d)
+	par.Gather(o.y, y0, perm, o.d)
 	for k := range o.gains {
 		o.gains[k] = 1
 	}
@@ -132,7 +135,7 @@ func (o *Optimizer) Y() []float64 { return o.inputOrder(o.y) }
 // input order.
 func (o *Optimizer) inputOrder(v []float64) []float64 {
 	out := make([]float64, len(v))
-	scatterRows(out, v, o.perm, o.d)
+	par.Scatter(out, v, o.perm, o.d)
 	return out
 }
 
@@ -159,7 +162,7 @@ func (o *Optimizer) Step() error {
 	nb := (nd + elemBlock - 1) / elemBlock
 	step, minGain := o.step, o.params.MinGain
 	// Element k belongs to column k mod d; column sums are kept per block.
-	forBlocks(nd, elemBlock, o.params.Threads, func(_, b, lo, hi int) {
+	par.Blocks(nd, elemBlock, o.params.threads(), func(_, b, lo, hi int) {
 		var s [3]float64
 		for k := lo; k < hi; k++ {
 			g, u := o.g[k], o.update[k]
@@ -193,7 +196,7 @@ func (o *Optimizer) Step() error {
 			return fmt.Errorf("gradient: iteration %d: the embedding diverged (non-finite coordinates); try a smaller learning rate", o.iter)
 		}
 	}
-	forBlocks(nd, elemBlock, o.params.Threads, func(_, _, lo, hi int) {
+	par.Blocks(nd, elemBlock, o.params.threads(), func(_, _, lo, hi int) {
 		for k := lo; k < hi; k++ {
 			o.y[k] -= mean[k%d]
 		}
@@ -273,9 +276,9 @@ func (o *Optimizer) Restore(s State) error {
 		}
 	}
 	o.iter = s.Iteration
-	gatherRows(o.y, s.Y, o.perm, o.d)
-	gatherRows(o.update, s.Update, o.perm, o.d)
-	gatherRows(o.gains, s.Gains, o.perm, o.d)
+	par.Gather(o.y, s.Y, o.perm, o.d)
+	par.Gather(o.update, s.Update, o.perm, o.d)
+	par.Gather(o.gains, s.Gains, o.perm, o.d)
 	o.kl, o.klValid = s.KL, true
 	o.lastZ = math.NaN()
 	if s.Iteration == 0 {

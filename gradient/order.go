@@ -3,6 +3,9 @@ package gradient
 import (
 	"math"
 	"slices"
+
+	"nightjar/internal/core"
+	"nightjar/internal/par"
 )
 
 // Locality order of the rows.
@@ -21,7 +24,7 @@ import (
 // breadth-first order over the non-zeros of p, starting from row 0 and, when
 // a component is exhausted, from the lowest row not yet reached; neighbours
 // are taken in column order. It is deterministic.
-func localityOrder(p Affinities) []int32 {
+func localityOrder(p core.CSR) []int32 {
 	n := p.N
 	perm := make([]int32, 0, n)
 	seen := make([]bool, n)
@@ -48,9 +51,9 @@ func localityOrder(p Affinities) []int32 {
 // result is row perm[k] of p, column j becomes inv[j] (inv the inverse of
 // perm), and each row is sorted by column again. The result has its own
 // storage (as much again as p).
-func permuteRows(p Affinities, perm, inv []int32, threads int) Affinities {
+func permuteRows(p core.CSR, perm, inv []int32, threads int) core.CSR {
 	n := p.N
-	q := Affinities{N: n, Offsets: make([]int64, n+1), Cols: make([]int32, len(p.Cols)), Vals: make([]float32, len(p.Vals))}
+	q := core.CSR{N: n, Offsets: make([]int64, n+1), Cols: make([]int32, len(p.Cols)), Vals: make([]float32, len(p.Vals))}
 	longest := int64(0)
 	for k, i := range perm {
 		l := p.Offsets[i+1] - p.Offsets[i]
@@ -58,7 +61,7 @@ func permuteRows(p Affinities, perm, inv []int32, threads int) Affinities {
 		longest = max(longest, l)
 	}
 	scratch := make([][]uint64, threads)
-	forBlocks(n, rowBlock, threads, func(w, _, lo, hi int) {
+	par.Blocks(n, rowBlock, threads, func(w, _, lo, hi int) {
 		if scratch[w] == nil {
 			scratch[w] = make([]uint64, longest)
 		}
@@ -79,27 +82,4 @@ func permuteRows(p Affinities, perm, inv []int32, threads int) Affinities {
 		}
 	})
 	return q
-}
-
-// inverse returns inv with inv[perm[k]] = k.
-func inverse(perm []int32) []int32 {
-	inv := make([]int32, len(perm))
-	for k, i := range perm {
-		inv[i] = int32(k)
-	}
-	return inv
-}
-
-// gatherRows writes dst[k] = src[perm[k]] for rows of d values.
-func gatherRows(dst, src []float64, perm []int32, d int) {
-	for k, i := range perm {
-		copy(dst[k*d:k*d+d], src[int(i)*d:int(i)*d+d])
-	}
-}
-
-// scatterRows writes dst[perm[k]] = src[k] for rows of d values.
-func scatterRows(dst, src []float64, perm []int32, d int) {
-	for k, i := range perm {
-		copy(dst[int(i)*d:int(i)*d+d], src[k*d:k*d+d])
-	}
 }

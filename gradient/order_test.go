@@ -4,6 +4,8 @@ import (
 	"math"
 	"math/rand/v2"
 	"testing"
+
+	"nightjar/internal/par"
 )
 
 // TestLocalityOrder checks that the renumbering is a permutation and that the
@@ -24,7 +26,7 @@ func TestLocalityOrder(t *testing.T) {
 			}
 			seen[i] = true
 		}
-		inv := inverse(perm)
+		inv := par.Inverse(perm)
 		for _, threads := range []int{1, 3} {
 			q := permuteRows(p, perm, inv, threads)
 			if err := q.Validate(); err != nil {

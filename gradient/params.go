@@ -1,90 +1,10 @@
-// Package gradient computes the t-SNE objective and its gradient and runs the
-// optimiser that turns a sparse input-affinity matrix P into a 2-D or 3-D map.
-//
-// The objective is KL(P‖Q) with output similarities q_ij = w_ij / Z, where
-// w_ij = (1 + ‖y_i − y_j‖²/α)^(−α) is the heavy-tailed kernel with α degrees of
-// freedom (α = 1 is the Cauchy kernel of t-SNE; van der Maaten & Hinton 2008,
-// JMLR 9; Kobak et al. 2019 for general α) and Z = Σ_{k≠l} w_kl. The gradient
-//
-//	∂KL/∂y_i = 4 Σ_j (p_ij − q_ij) w_ij^(1/α) (y_i − y_j)
-//
-// splits into a sparse attractive part over the non-zeros of P and a dense
-// repulsive part over all pairs. The repulsive part is computed exactly
-// (O(N²), a reference for small N), by Barnes–Hut with a quadtree or octree
-// (van der Maaten 2014, JMLR 15), or — for 2-D maps with α = 1 — by
-// interpolation onto an equispaced grid whose convolution is evaluated by FFT
-// (Linderman et al. 2019, Nature Methods).
-//
-// All parallel work is cut into fixed-size blocks of points; reductions are
-// summed per block and the block sums added in block order, so every result
-// is bit-identical whatever the number of threads.
 package gradient
 
 import (
 	"fmt"
 	"math"
-	"runtime"
 	"strings"
 )
-
-// Affinities is the sparse symmetric input-affinity matrix P in compressed
-// sparse row form, laid out like knn.CSR: the entries of row i are
-// Cols[Offsets[i]:Offsets[i+1]] with values Vals at the same positions,
-// columns ascending within a row, len(Offsets) == N+1, no diagonal entries,
-// values non-negative and summing to 1. P must be symmetric (p_ij = p_ji
-// stored in both rows); this is assumed, not checked.
-type Affinities struct {
-	N       int
-	Offsets []int64
-	Cols    []int32
-	Vals    []float32
-}
-
-// Validate checks the CSR layout of a: offsets, column range and order, no
-// diagonal entries, finite non-negative values summing to 1 within 1e-4.
-// Symmetry is not checked. It costs one pass over the non-zeros.
-func (a Affinities) Validate() error {
-	if a.N < 2 {
-		return fmt.Errorf("affinities: N = %d, need at least 2 rows", a.N)
-	}
-	if len(a.Offsets) != a.N+1 {
-		return fmt.Errorf("affinities: %d row offsets for N = %d, want N+1", len(a.Offsets), a.N)
-	}
-	if a.Offsets[0] != 0 || a.Offsets[a.N] != int64(len(a.Cols)) || len(a.Cols) != len(a.Vals) {
-		return fmt.Errorf("affinities: offsets run from %d to %d but there are %d columns and %d values",
-			a.Offsets[0], a.Offsets[a.N], len(a.Cols), len(a.Vals))
-	}
-	var sum float64
-	for i := 0; i < a.N; i++ {
-		lo, hi := a.Offsets[i], a.Offsets[i+1]
-		if hi < lo {
-			return fmt.Errorf("affinities: row %d has decreasing offsets %d > %d", i, lo, hi)
-		}
-		prev := int32(-1)
-		for e := lo; e < hi; e++ {
-			j := a.Cols[e]
-			if j < 0 || int(j) >= a.N {
-				return fmt.Errorf("affinities: row %d has column %d outside [0, %d)", i, j, a.N)
-			}
-			if j <= prev {
-				return fmt.Errorf("affinities: row %d columns not strictly ascending at %d", i, j)
-			}
-			if int(j) == i {
-				return fmt.Errorf("affinities: row %d has a diagonal entry", i)
-			}
-			prev = j
-			v := float64(a.Vals[e])
-			if !(v >= 0) || math.IsInf(v, 0) {
-				return fmt.Errorf("affinities: row %d column %d has value %v, want finite ≥ 0", i, j, v)
-			}
-			sum += v
-		}
-	}
-	if math.Abs(sum-1) > 1e-4 {
-		return fmt.Errorf("affinities: values sum to %.8g, want 1", sum)
-	}
-	return nil
-}
 
 // Method selects how the repulsive forces are computed.
 type Method int
@@ -163,14 +83,16 @@ type Params struct {
 	// LearningRate η in the units of a gradient WITHOUT the constant 4, the
 	// convention in which 200 is the classic value; the optimiser applies
 	// η/4 to the gradient it computes (which keeps the 4). 0 = automatic:
-	// η = max(N/ρ, 200) (Belkina et al. 2019; Kobak & Berens 2019; the floor
-	// of 200 is the DESIGN.md default), see AutoLearningRate.
+	// η = max(N/ρ, 200), see AutoLearningRate.
 	LearningRate  float64
 	MomentumEarly float64 // momentum during the early phase, [0, 1)
 	MomentumLate  float64 // momentum afterwards, [0, 1)
 	MinGain       float64 // lower bound of the delta-bar-delta gains, (0, 1]
 	Method        Method  // repulsion method
-	// Threads is the number of goroutines, ≥ 1. Results do not depend on it.
+	// Threads is the number of goroutines the computation may use; values
+	// below 1 mean 1. The package never looks at the number of CPUs: the
+	// caller chooses (runtime.GOMAXPROCS(0) uses them all). Results do not
+	// depend on it, to the bit.
 	Threads int
 	// Grid settings (Method Grid only); 0 = the defaults DefaultGridMin,
 	// DefaultGridOrder, DefaultGridSpacing. Accuracy is governed by the node
@@ -183,16 +105,19 @@ type Params struct {
 
 // AutoLearningRate is the automatic learning rate for n rows and early
 // exaggeration rho, in the units of Params.LearningRate (gradient without the
-// constant 4): max(n/rho, 200). Belkina et al. 2019 and Kobak & Berens 2019
-// (N/12 with ρ = 12); the floor 200 is from DESIGN.md.
+// constant 4): max(n/rho, 200). The rule n/ρ is from Belkina et al. 2019 and
+// Kobak & Berens 2019 (N/12 with ρ = 12); the floor is the classic fixed
+// learning rate 200 (common practice). See the package documentation.
 func AutoLearningRate(n int, rho float64) float64 {
 	return math.Max(float64(n)/rho, 200)
 }
 
-// DefaultParams returns the published defaults for n rows (DESIGN.md):
-// 2-D, α = 1, θ = 0.5, ρ = 12 for 250 of 1000 iterations, momentum 0.5 then
-// 0.8, minimum gain 0.01, learning rate AutoLearningRate(n, 12), method Auto,
-// one thread per available CPU.
+// DefaultParams returns the published defaults for n rows: 2-D, α = 1
+// (van der Maaten & Hinton 2008), θ = 0.5, ρ = 12 for 250 of 1000
+// iterations, momentum 0.5 then 0.8, minimum gain 0.01 (van der Maaten 2014),
+// learning rate AutoLearningRate(n, 12), method Auto, and one thread: callers
+// set Threads to the number of goroutines they grant (the result does not
+// depend on it).
 func DefaultParams(n int) Params {
 	return Params{
 		Dims:            2,
@@ -206,12 +131,12 @@ func DefaultParams(n int) Params {
 		MomentumLate:    0.8,
 		MinGain:         0.01,
 		Method:          Auto,
-		Threads:         runtime.GOMAXPROCS(0),
+		Threads:         1,
 	}
 }
 
 // Validate checks p for a problem with n rows. Each error names the parameter
-// and its allowed range.
+// and its allowed range. Threads is not checked: any value below 1 means 1.
 func (p Params) Validate(n int) error {
 	bad := func(name string, v any, want string) error {
 		return fmt.Errorf("gradient parameter %s = %v: want %s", name, v, want)
@@ -242,8 +167,6 @@ func (p Params) Validate(n int) error {
 		return bad("MomentumLate", p.MomentumLate, "a number in [0, 1)")
 	case !(p.MinGain > 0 && p.MinGain <= 1):
 		return bad("MinGain", p.MinGain, "a number in (0, 1]")
-	case p.Threads < 1:
-		return bad("Threads", p.Threads, "at least 1")
 	case p.GridMin < 0 || p.GridMin > 4096:
 		return bad("GridMin", p.GridMin, "0 (default) or an integer in [1, 4096]")
 	case p.GridOrder < 0 || p.GridOrder > 8:
@@ -290,3 +213,6 @@ func (p Params) EffectiveLearningRate(n int) float64 {
 	}
 	return AutoLearningRate(n, p.Exaggeration)
 }
+
+// threads returns Threads, or 1 when it is below 1.
+func (p Params) threads() int { return max(1, p.Threads) }

@@ -3,6 +3,8 @@ package gradient
 import (
 	"math"
 	"math/bits"
+
+	"nightjar/internal/par"
 )
 
 // Barnes–Hut repulsion (van der Maaten 2014, JMLR 15).
@@ -181,8 +183,8 @@ func (t *bhTree) radixSort() {
 // diagonal 4e-3 relative force error (side: 1e-2); 3-D side 4e-3 (diagonal:
 // 7e-4 at 2.2× the time). So θ = 0.5 means about the same accuracy in 2-D
 // and 3-D. A tight size (twice the distance from the centre of mass to the
-// farthest corner of the points' bounding box) was tried and was no faster at
-// equal error.
+// farthest corner of the points' bounding box) is no faster at equal error
+// (measured the same way).
 func bhSizeFactor(dims int) float64 {
 	if dims == 2 {
 		return 2
@@ -454,12 +456,12 @@ func (t *bhTree) repulsion(y []float64, alpha, theta float64, rep []float64) flo
 	ng := len(t.groups)
 	t.zGroup = growFloats(t.zGroup, ng)
 	theta2 := theta * theta
-	forBlocks(ng, 1, t.threads, func(w, b, _, _ int) {
+	par.Blocks(ng, 1, t.threads, func(w, b, _, _ int) {
 		if t.dims == 2 {
 			t.zGroup[b] = t.group2(w, t.groups[b], alpha, theta2, rep)
 		} else {
 			t.zGroup[b] = t.group3(w, t.groups[b], alpha, theta2, rep)
 		}
 	})
-	return sumBlocks(t.zGroup)
+	return par.Sum(t.zGroup)
 }
