@@ -187,7 +187,6 @@ func readParquet(path string, f *os.File, opt Options, ctl readCtl) (*Table, err
 	plan := planFor(path, sc, sel, opt, total, ctl.noPass)
 	plan.feat, plan.id, plan.label = rsel.features, rsel.id, rsel.label
 	b := newBuilder(path, sel.names(arrowCols(sc)), opt, presizeRows(total, len(sel.features), fileSize(f)), ctl)
-	b.gcWeight = 4 // pqarrow's decoding leaves about 4 bytes of garbage per value byte (measured)
 	for rr.Next() {
 		if err := plan.consume(b, rr.Record()); err != nil {
 			return nil, err

@@ -17,6 +17,8 @@ import (
 	"github.com/apache/arrow/go/v17/arrow/ipc"
 	"github.com/apache/arrow/go/v17/arrow/memory"
 	"github.com/apache/arrow/go/v17/parquet/pqarrow"
+
+	"nightjar/internal/core"
 )
 
 // writeParquetRecord writes rec with pqarrow's own writer (not WriteTable), so that
@@ -60,7 +62,7 @@ func nullRecord(ids []int64, idValid []bool, f []float64, fValid []bool) arrow.R
 
 // bigTable is an N×3 table (columns a, g7, c) with v at row `row` (1-based) of g7.
 func bigTable(n, row int, v float32) *Table {
-	t := &Table{Matrix: Matrix{N: n, D: 3, Data: make([]float32, n*3)}, Features: []string{"a", "g7", "c"}}
+	t := &Table{Matrix: core.Matrix{N: n, D: 3, Data: make([]float32, n*3)}, Features: []string{"a", "g7", "c"}}
 	for i := range t.Data {
 		t.Data[i] = float32(i % 17)
 	}
@@ -81,7 +83,7 @@ func TestBadInput(t *testing.T) {
 		return p
 	}
 	// A valid Parquet and Arrow file and stream to damage.
-	good := &Table{Matrix: Matrix{N: 50, D: 2, Data: make([]float32, 100)}, Features: []string{"u", "v"},
+	good := &Table{Matrix: core.Matrix{N: 50, D: 2, Data: make([]float32, 100)}, Features: []string{"u", "v"},
 		Label: &Column{Name: "name", Strings: make([]string, 50)}}
 	var pq bytes.Buffer
 	if err := WriteTable(&pq, good); err != nil {

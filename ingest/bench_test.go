@@ -7,11 +7,13 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"nightjar/internal/core"
 )
 
 // benchTable is an invented n×d table (values are a cheap hash of the position).
 func benchTable(n, d int) *Table {
-	t := &Table{Matrix: Matrix{N: n, D: d, Data: make([]float32, n*d)}, Features: make([]string, d),
+	t := &Table{Matrix: core.Matrix{N: n, D: d, Data: make([]float32, n*d)}, Features: make([]string, d),
 		ID: &Column{Name: "id", Ints: make([]int64, n)}, Label: &Column{Name: "label", Strings: make([]string, n)}}
 	for j := range t.Features {
 		t.Features[j] = fmt.Sprintf("f%02d", j)
@@ -92,7 +94,7 @@ func BenchmarkWriteEmbedding1Mx2(b *testing.B) {
 func BenchmarkFitPCA200kx50(b *testing.B) {
 	t := benchTable(200_000, 50)
 	for b.Loop() {
-		if _, err := FitPCA(t.Matrix, 2); err != nil {
+		if _, err := FitPCA(t.Matrix, 2, 2); err != nil {
 			b.Fatal(err)
 		}
 	}
@@ -100,8 +102,8 @@ func BenchmarkFitPCA200kx50(b *testing.B) {
 
 func BenchmarkProject200kx50k2(b *testing.B) {
 	t := benchTable(200_000, 50)
-	p, _ := FitPCA(t.Matrix, 2)
+	p, _ := FitPCA(t.Matrix, 2, 2)
 	for b.Loop() {
-		p.Project(t.Matrix)
+		p.Project(t.Matrix, 2)
 	}
 }

@@ -8,12 +8,11 @@ import (
 	"io"
 	"os"
 	"path/filepath"
-	"runtime"
 	"slices"
 	"strconv"
 	"strings"
-	"sync"
-	"sync/atomic"
+
+	"nightjar/internal/par"
 )
 
 // csvSampleRows is the number of leading rows used to tell numeric CSV columns from
@@ -57,20 +56,62 @@ func parseCanonicalInt(s string) (int64, bool) {
 
 func readCSV(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) {
 	br := bufio.NewReaderSize(f, 1<<20)
-	comma := ','
-	if strings.EqualFold(filepath.Ext(path), ".tsv") {
-		comma = '\t'
-	} else if line, _ := br.Peek(min(br.Buffered()+br.Size(), 64<<10)); len(line) > 0 {
-		if k := bytes.IndexByte(line, '\n'); k >= 0 {
-			line = line[:k]
-		}
-		if bytes.IndexByte(line, '\t') >= 0 && bytes.IndexByte(line, ',') < 0 {
-			comma = '\t'
-		}
-	}
 	cr := csv.NewReader(br)
-	cr.Comma = comma
+	cr.Comma = csvComma(path, br)
 	cr.ReuseRecord = false // records are kept until their group is parsed
+	header, err := readCSVHeader(path, cr)
+	if err != nil {
+		return nil, err
+	}
+	sample, err := sampleCSV(path, cr, fileSize(f))
+	if err != nil {
+		return nil, err
+	}
+	cols, infos := csvColumns(header, sample.rows)
+	sel, err := selectColumns(path, cols, opt)
+	if err != nil {
+		return nil, err
+	}
+	opt.BatchRows = ctl.batch(opt, len(sel.features))
+	cp := &csvPlan{sel: sel, batch: opt.BatchRows, threads: max(1, opt.Threads)}
+	if sel.id >= 0 && !ctl.noPass {
+		cp.idP = newPassCol(path, header[sel.id], true, infos[sel.id].integer)
+	}
+	if sel.label >= 0 && !ctl.noPass {
+		cp.labelP = newPassCol(path, header[sel.label], false, false)
+	}
+	b := newBuilder(path, sel.names(cols), opt, presizeRows(sample.estimate, len(sel.features), fileSize(f)), ctl)
+	rows := sample.rows
+	next := func() ([]string, error) { // the sampled records first, then the rest
+		if len(rows) > 0 {
+			rec := rows[0]
+			rows = rows[1:]
+			return rec, nil
+		}
+		return cr.Read()
+	}
+	return cp.readAll(b, next, opt.Progress)
+}
+
+// csvComma returns the field separator: a tab for a .tsv file or when the first
+// line holds tabs and no commas, else a comma.
+func csvComma(path string, br *bufio.Reader) rune {
+	if strings.EqualFold(filepath.Ext(path), ".tsv") {
+		return '\t'
+	}
+	line, _ := br.Peek(min(br.Buffered()+br.Size(), 64<<10))
+	if k := bytes.IndexByte(line, '\n'); k >= 0 {
+		line = line[:k]
+	}
+	if bytes.IndexByte(line, '\t') >= 0 && bytes.IndexByte(line, ',') < 0 {
+		return '\t'
+	}
+	return ','
+}
+
+// readCSVHeader reads the header row: names trimmed of spaces and of a leading
+// byte order mark. Every later record must have as many fields.
+func readCSVHeader(path string, cr *csv.Reader) ([]string, error) {
 	header, err := cr.Read()
 	if err == io.EOF {
 		return nil, inputErr(path, "", 0, "empty CSV file (no header row)")
@@ -84,32 +125,48 @@ func readCSV(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) 
 	}
 	header[0] = strings.TrimPrefix(header[0], "\ufeff")
 	cr.FieldsPerRecord = len(header)
+	return header, nil
+}
 
-	var sample [][]string
+// csvSample holds the first records of a CSV file and an estimate of its row count.
+type csvSample struct {
+	rows     [][]string
+	estimate int64
+}
+
+// sampleCSV reads up to csvSampleRows records after the header. The row count is
+// estimated from the bytes per sampled row, 5% over, so that the matrix is usually
+// allocated once (it grows if the estimate falls short). A file without data rows
+// is an error.
+func sampleCSV(path string, cr *csv.Reader, size int64) (csvSample, error) {
+	var s csvSample
 	headerEnd := cr.InputOffset()
 	sawEOF := false
-	for len(sample) < csvSampleRows {
+	for len(s.rows) < csvSampleRows {
 		rec, err := cr.Read()
 		if err == io.EOF {
 			sawEOF = true
 			break
 		}
 		if err != nil {
-			return nil, csvError(path, int64(len(sample))+1, err)
+			return s, csvError(path, int64(len(s.rows))+1, err)
 		}
-		sample = append(sample, rec)
+		s.rows = append(s.rows, rec)
 	}
-	// Estimate the row count from the bytes per sampled row, 5% over, so that the
-	// matrix is usually allocated once (it grows if the estimate falls short).
-	estimate := int64(len(sample))
-	if !sawEOF && len(sample) > 0 {
-		perRow := float64(cr.InputOffset()-headerEnd) / float64(len(sample))
-		rest := float64(fileSize(f) - cr.InputOffset())
-		estimate += int64(1.05*rest/max(perRow, 1)) + 1024
+	if len(s.rows) == 0 {
+		return s, inputErr(path, "", 0, "empty table (0 rows)")
 	}
-	if len(sample) == 0 {
-		return nil, inputErr(path, "", 0, "empty table (0 rows)")
+	s.estimate = int64(len(s.rows))
+	if !sawEOF {
+		perRow := float64(cr.InputOffset()-headerEnd) / float64(len(s.rows))
+		rest := float64(size - cr.InputOffset())
+		s.estimate += int64(1.05*rest/max(perRow, 1)) + 1024
 	}
+	return s, nil
+}
+
+// csvColumns describes the columns for column selection from the sampled records.
+func csvColumns(header []string, sample [][]string) ([]colInfo, []csvInfo) {
 	infos := make([]csvInfo, len(header))
 	for c := range infos {
 		infos[c] = csvInfo{integer: true}
@@ -140,34 +197,19 @@ func readCSV(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) 
 			cols[c].typ = "text"
 		}
 	}
-	sel, err := selectColumns(path, cols, opt)
-	if err != nil {
-		return nil, err
-	}
-	opt.BatchRows = ctl.batch(opt, len(sel.features))
-	cp := &csvPlan{sel: sel, batch: opt.BatchRows, offset: cr.InputOffset}
-	if sel.id >= 0 && !ctl.noPass {
-		cp.idP = newPassCol(path, header[sel.id], true, infos[sel.id].integer)
-	}
-	if sel.label >= 0 && !ctl.noPass {
-		cp.labelP = newPassCol(path, header[sel.label], false, false)
-	}
-	b := newBuilder(path, sel.names(cols), opt, presizeRows(estimate, len(sel.features), fileSize(f)), ctl)
-	next := func() ([]string, error) {
-		if len(sample) > 0 {
-			rec := sample[0]
-			sample = sample[1:]
-			return rec, nil
-		}
-		return cr.Read()
-	}
+	return cols, infos
+}
+
+// readAll reads every record from next into the builder, chunk by chunk, and
+// returns the table.
+func (cp *csvPlan) readAll(b *builder, next func() ([]string, error), progress func(done, total int64)) (*Table, error) {
 	for {
 		done, err := cp.chunk(b, next)
 		if err != nil {
 			return nil, err
 		}
-		if opt.Progress != nil {
-			opt.Progress(b.seen, -1)
+		if progress != nil {
+			progress(b.seen, -1)
 		}
 		if done {
 			break
@@ -198,11 +240,10 @@ func csvError(path string, row int64, err error) error {
 type csvPlan struct {
 	sel         selection
 	batch       int
+	threads     int // goroutines parsing numbers, at least 1
 	idP, labelP *passCol
 	ids, labels []string
 	group       [][]string // records read, not yet parsed
-	offset      func() int64
-	lastOffset  int64
 }
 
 // csvGroupRows is the number of records gathered before their numbers are parsed
@@ -222,25 +263,7 @@ func (cp *csvPlan) chunk(b *builder, next func() ([]string, error)) (done bool, 
 	n := 0
 	var readErr error // a malformed record; reported after the bad values before it
 	for n < cp.batch && !done && readErr == nil {
-		cp.group = cp.group[:0]
-		for len(cp.group) < csvGroupRows && n+len(cp.group) < cp.batch {
-			rec, err := next()
-			if err == io.EOF {
-				done = true
-				break
-			}
-			if err != nil {
-				readErr = csvError(b.file, b.seen+int64(n+len(cp.group))+1, err)
-				break
-			}
-			cp.group = append(cp.group, rec)
-			if cp.idP != nil {
-				cp.ids = append(cp.ids, strings.Clone(strings.TrimSpace(rec[cp.sel.id])))
-			}
-			if cp.labelP != nil {
-				cp.labels = append(cp.labels, cp.labelP.text(rec[cp.sel.label]))
-			}
-		}
+		done, readErr = cp.readGroup(b, next, n)
 		cp.parseGroup(b, dst, n)
 		n += len(cp.group)
 	}
@@ -259,53 +282,62 @@ func (cp *csvPlan) chunk(b *builder, next func() ([]string, error)) (done bool, 
 	if err != nil {
 		return false, err
 	}
+	if err := cp.appendPass(b, keep, n); err != nil {
+		return false, err
+	}
+	b.advance(n)
+	return done, nil
+}
+
+// readGroup reads the next group of records (at most csvGroupRows, and no more
+// than fill the chunk, which holds n rows already) into cp.group, keeping their
+// ids and labels as text. done reports the end of the file; readErr is a
+// malformed record, which ends the group.
+func (cp *csvPlan) readGroup(b *builder, next func() ([]string, error), n int) (done bool, readErr error) {
+	cp.group = cp.group[:0]
+	for len(cp.group) < csvGroupRows && n+len(cp.group) < cp.batch {
+		rec, err := next()
+		if err == io.EOF {
+			return true, nil
+		}
+		if err != nil {
+			return false, csvError(b.file, b.seen+int64(n+len(cp.group))+1, err)
+		}
+		cp.group = append(cp.group, rec)
+		if cp.idP != nil {
+			cp.ids = append(cp.ids, strings.Clone(strings.TrimSpace(rec[cp.sel.id])))
+		}
+		if cp.labelP != nil {
+			cp.labels = append(cp.labels, cp.labelP.text(rec[cp.sel.label]))
+		}
+	}
+	return false, nil
+}
+
+// appendPass appends the ids and labels of the chunk's kept rows: those of the n
+// rows with keep[i] set, or all n when keep is nil.
+func (cp *csvPlan) appendPass(b *builder, keep []bool, n int) error {
 	for i := 0; i < n; i++ {
 		if keep != nil && !keep[i] {
 			continue
 		}
 		if cp.idP != nil {
 			if err := cp.idP.appendCSVID(cp.ids[i], b.seen+int64(i)+1); err != nil {
-				return false, err
+				return err
 			}
 		}
 		if cp.labelP != nil {
 			cp.labelP.col.Strings = append(cp.labelP.col.Strings, cp.labels[i])
 		}
 	}
-	// Each input byte leaves about two bytes of garbage (the record's string and
-	// field headers): count them towards the next collection (see builder.advance).
-	off := cp.offset()
-	b.sinceGC += 2 * (off - cp.lastOffset)
-	cp.lastOffset = off
-	b.advance(n)
-	return done, nil
+	return nil
 }
 
 // parseGroup parses the features of cp.group into chunk rows first, first+1, ….
 func (cp *csvPlan) parseGroup(b *builder, dst []float32, first int) {
-	rows := len(cp.group)
-	blocks := (rows + csvParseBlock - 1) / csvParseBlock
-	workers := min(blocks, runtime.GOMAXPROCS(0))
-	if workers <= 1 {
-		cp.parseRows(b, dst, first, 0, rows)
-		return
-	}
-	var next atomic.Int64
-	var wg sync.WaitGroup
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for {
-				k := int(next.Add(1)) - 1
-				if k >= blocks {
-					return
-				}
-				cp.parseRows(b, dst, first, k*csvParseBlock, min(rows, (k+1)*csvParseBlock))
-			}
-		}()
-	}
-	wg.Wait()
+	par.Blocks(len(cp.group), csvParseBlock, cp.threads, func(_, _, lo, hi int) {
+		cp.parseRows(b, dst, first, lo, hi)
+	})
 }
 
 // parseRows parses group rows [lo, hi). It writes only those rows of dst and of

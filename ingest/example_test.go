@@ -7,6 +7,8 @@ import (
 	"path/filepath"
 
 	"nightjar/ingest"
+
+	"nightjar/internal/core"
 )
 
 // Invented demo data: a tiny CSV table of three flowers.
@@ -66,10 +68,10 @@ func ExampleWriteEmbedding() {
 
 // FitPCA and Project on a tiny invented matrix: the points lie on the line y = 2x.
 func ExampleFitPCA() {
-	m := ingest.Matrix{N: 4, D: 2, Data: []float32{0, 0, 1, 2, 2, 4, 3, 6}}
-	p, _ := ingest.FitPCA(m, 1)
+	m := core.Matrix{N: 4, D: 2, Data: []float32{0, 0, 1, 2, 2, 4, 3, 6}}
+	p, _ := ingest.FitPCA(m, 1, 1)
 	fmt.Printf("variance %.4f, direction [%.4f %.4f]\n", p.Variance[0], p.Components[0], p.Components[1])
-	fmt.Printf("scores %.4f\n", p.Project(m))
+	fmt.Printf("scores %.4f\n", p.Project(m, 1))
 	// Output:
 	// variance 8.3333, direction [0.4472 0.8944]
 	// scores [-3.3541 -1.1180 1.1180 3.3541]

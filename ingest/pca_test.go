@@ -2,17 +2,18 @@ package ingest
 
 import (
 	"math"
-	"runtime"
 	"slices"
 	"testing"
 
 	"gonum.org/v1/gonum/mat"
 	"gonum.org/v1/gonum/stat"
+
+	"nightjar/internal/core"
 )
 
 // gonumPC returns gonum's stat.PC variances and the direction vectors (D×D, columns
 // are components) for m.
-func gonumPC(t *testing.T, m Matrix) ([]float64, *mat.Dense) {
+func gonumPC(t *testing.T, m core.Matrix) ([]float64, *mat.Dense) {
 	t.Helper()
 	x := mat.NewDense(m.N, m.D, nil)
 	for i := 0; i < m.N; i++ {
@@ -30,7 +31,7 @@ func gonumPC(t *testing.T, m Matrix) ([]float64, *mat.Dense) {
 }
 
 // checkAgainstGonum compares the first k components of p with gonum's stat.PC.
-func checkAgainstGonum(t *testing.T, m Matrix, p *PCA, k int, tol float64) {
+func checkAgainstGonum(t *testing.T, m core.Matrix, p *PCA, k int, tol float64) {
 	t.Helper()
 	vars, vec := gonumPC(t, m)
 	for c := 0; c < k; c++ {
@@ -47,7 +48,7 @@ func checkAgainstGonum(t *testing.T, m Matrix, p *PCA, k int, tol float64) {
 		}
 	}
 	// Scores are the centred data times the components.
-	y := p.Project(m)
+	y := p.Project(m, 2)
 	for i := 0; i < m.N; i += max(1, m.N/50) {
 		for c := 0; c < k; c++ {
 			s := 0.0
@@ -63,7 +64,7 @@ func checkAgainstGonum(t *testing.T, m Matrix, p *PCA, k int, tol float64) {
 
 // irisHead is the truncated sample of Fisher's Iris data printed in gonum's
 // stat.PC example (gonum v0.17.0, stat/pca_example_test.go).
-var irisHead = Matrix{N: 10, D: 4, Data: []float32{
+var irisHead = core.Matrix{N: 10, D: 4, Data: []float32{
 	5.1, 3.5, 1.4, 0.2,
 	4.9, 3.0, 1.4, 0.2,
 	4.7, 3.2, 1.3, 0.2,
@@ -77,7 +78,7 @@ var irisHead = Matrix{N: 10, D: 4, Data: []float32{
 }}
 
 func TestPCAIris(t *testing.T) {
-	p, err := FitPCA(irisHead, 4)
+	p, err := FitPCA(irisHead, 4, 2)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -95,7 +96,7 @@ func TestPCAIris(t *testing.T) {
 	}
 	// Published projections of gonum's ExamplePC are x·v (not centred); first row on
 	// the first component: -6.1686 (up to sign).
-	y := p.Project(irisHead)
+	y := p.Project(irisHead, 2)
 	mv := 0.0
 	for j := 0; j < 4; j++ {
 		mv += p.Mean[j] * p.Components[j]
@@ -110,13 +111,13 @@ func TestPCAIris(t *testing.T) {
 func TestPCAMNIST(t *testing.T) {
 	n := 5000
 	full, _ := mnistRows(t, n)
-	m := Matrix{N: n, D: 64, Data: make([]float32, n*64)}
+	m := core.Matrix{N: n, D: 64, Data: make([]float32, n*64)}
 	for i := 0; i < n; i++ {
 		for r := 0; r < 8; r++ {
 			copy(m.Data[i*64+r*8:i*64+r*8+8], full.Data[i*784+(10+r)*28+10:])
 		}
 	}
-	p, err := FitPCA(m, 5)
+	p, err := FitPCA(m, 5, 2)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -143,29 +144,27 @@ func cmpFloat(a, b float64) int {
 // are fed to the accumulator (the streaming path feeds uneven chunks).
 func TestPCADeterministic(t *testing.T) {
 	m, _ := mnistRows(t, 9000)
-	m = Matrix{N: m.N, D: 40, Data: subColumns(m, 370, 40)}
-	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(0))
+	m = core.Matrix{N: m.N, D: 40, Data: subColumns(m, 370, 40)}
 	var ref *PCA
 	var refY []float64
-	for _, procs := range []int{1, 2, 5} {
-		runtime.GOMAXPROCS(procs)
-		p, err := FitPCA(m, 3)
+	for _, threads := range []int{1, 2, 5, 0} {
+		p, err := FitPCA(m, 3, threads)
 		if err != nil {
 			t.Fatal(err)
 		}
-		y := p.Project(m)
+		y := p.Project(m, threads)
 		if ref == nil {
 			ref, refY = p, y
 			continue
 		}
 		if !slices.Equal(p.Components, ref.Components) || !slices.Equal(p.Variance, ref.Variance) || !slices.Equal(y, refY) {
-			t.Fatalf("GOMAXPROCS=%d changes the result", procs)
+			t.Fatalf("%d threads change the result", threads)
 		}
 	}
-	acc := newCovAcc(m.D)
+	acc := newCovAcc(m.D, 3)
 	for lo, step := 0, 1; lo < m.N; step = step*3 + 1 {
 		hi := min(m.N, lo+step)
-		acc.add(Matrix{N: hi - lo, D: m.D, Data: m.Data[lo*m.D : hi*m.D]})
+		acc.add(core.Matrix{N: hi - lo, D: m.D, Data: m.Data[lo*m.D : hi*m.D]})
 		lo = hi
 	}
 	p, err := acc.pca(3)
@@ -178,7 +177,7 @@ func TestPCADeterministic(t *testing.T) {
 }
 
 // subColumns copies columns [from, from+d) of m.
-func subColumns(m Matrix, from, d int) []float32 {
+func subColumns(m core.Matrix, from, d int) []float32 {
 	out := make([]float32, m.N*d)
 	for i := 0; i < m.N; i++ {
 		copy(out[i*d:(i+1)*d], m.Data[i*m.D+from:])
@@ -188,23 +187,23 @@ func subColumns(m Matrix, from, d int) []float32 {
 
 func TestPCAErrors(t *testing.T) {
 	cases := []struct {
-		m Matrix
+		m core.Matrix
 		k int
 	}{
 		{irisHead, 0},
 		{irisHead, 5},
-		{Matrix{N: 1, D: 2, Data: []float32{1, 2}}, 1},
+		{core.Matrix{N: 1, D: 2, Data: []float32{1, 2}}, 1},
 	}
 	for _, c := range cases {
-		if _, err := FitPCA(c.m, c.k); err == nil {
+		if _, err := FitPCA(c.m, c.k, 1); err == nil {
 			t.Errorf("FitPCA(N=%d, D=%d, k=%d) gave no error", c.m.N, c.m.D, c.k)
 		}
 	}
-	p, _ := FitPCA(irisHead, 2)
+	p, _ := FitPCA(irisHead, 2, 2)
 	defer func() {
 		if recover() == nil {
 			t.Error("Project with the wrong D did not panic")
 		}
 	}()
-	p.Project(Matrix{N: 1, D: 3, Data: []float32{1, 2, 3}})
+	p.Project(core.Matrix{N: 1, D: 3, Data: []float32{1, 2, 3}}, 1)
 }

@@ -11,10 +11,11 @@ import (
 	"math"
 	"os"
 	"path/filepath"
-	"runtime"
 	"strconv"
 	"strings"
 	"unicode/utf8"
+
+	"nightjar/internal/core"
 )
 
 // DefaultBatchRows is the number of rows read per chunk when Options.BatchRows is 0.
@@ -37,15 +38,19 @@ type Options struct {
 	BatchRows int
 	// Progress, if non-nil, is called after each chunk with the number of input rows
 	// consumed so far (kept and skipped) and the total, or -1 when the total is not
-	// known in advance (CSV, Arrow IPC stream).
+	// known in advance (CSV, Arrow IPC stream). It runs on the calling goroutine.
 	Progress func(doneRows, totalRows int64)
+	// Threads is the number of goroutines that parse CSV numbers and, in
+	// ReadReduced, accumulate the covariance and project the rows; below 1 means 1.
+	// The result does not depend on it.
+	Threads int
 }
 
 // Table is a feature table read by Read.
 type Table struct {
 	// Matrix holds the N×D features as float32, rows in input order after skipping.
 	// Integer features wider than 24 bits are rounded to the nearest float32.
-	Matrix
+	core.Matrix
 	// Features holds the D feature column names, in matrix column order.
 	Features []string
 	// ID and Label are the pass-through columns, each of length N, or nil when not
@@ -88,16 +93,22 @@ type Table struct {
 // inside the Parquet or Arrow decoders on a damaged file is recovered into such an
 // error too.
 //
-// Memory: about one copy of the N×D float32 matrix plus the id and label columns
-// plus one chunk being decoded; Read calls runtime.GC after every 32 MiB of chunk
-// data so that decoded batches do not pile up to the size of the matrix.
+// Memory: one copy of the N×D float32 matrix plus the id and label columns plus one
+// chunk being decoded, and the garbage the decoders leave behind (for Parquet about 4
+// bytes per byte of chunk data, for CSV about 2 bytes per input byte). Read does not
+// touch the garbage collector. The matrix holds no pointers and, when pre-sized, is
+// live from the start, so with the default GOGC of 100 the collector lets that
+// garbage grow to about the size of the matrix: peak memory approaches two copies
+// of it. A caller that needs the peak near one copy can collect from Progress, which
+// runs after every chunk (runtime.GC every 32 MiB or so of chunk data costs little),
+// or lower GOGC or set a memory limit (runtime/debug) while Read runs.
 func Read(path string, opt Options) (*Table, error) {
 	return read(path, opt, readCtl{})
 }
 
 // batchSink receives the rows of each chunk after validation. Used by the streaming
 // PCA to avoid keeping the matrix.
-type batchSink func(rows Matrix) error
+type batchSink func(rows core.Matrix) error
 
 // readCtl tells read what to keep: with a sink the matrix is not kept (each chunk
 // goes to the sink only); noPass skips the id and label columns.
@@ -299,9 +310,7 @@ type builder struct {
 	marks    []mark
 	keep     []bool
 	bad      bool // some mark set in the current chunk
-	sinceGC  int64
-	gcWeight int64 // garbage made per byte of chunk data by the decoder (default 1)
-	start    int   // len(data) at the start of the chunk
+	start    int  // len(data) at the start of the chunk
 }
 
 // presizeRows returns how many rows to allocate up front for a file of fileSize bytes
@@ -398,7 +407,7 @@ func (b *builder) emit(rows int) error {
 	b.hashFloats(region)
 	b.kept += int64(rows)
 	if b.sink != nil {
-		if err := b.sink(Matrix{N: rows, D: b.d, Data: region}); err != nil {
+		if err := b.sink(core.Matrix{N: rows, D: b.d, Data: region}); err != nil {
 			return err
 		}
 	}
@@ -408,22 +417,8 @@ func (b *builder) emit(rows int) error {
 	return nil
 }
 
-func (b *builder) advance(n int) {
-	b.seen += int64(n)
-	// The matrix holds no pointers and is live from the start when pre-sized, so the
-	// collector would let a read's garbage (decoded batches) grow to about the size of
-	// the matrix before collecting. Collecting after every 32 MiB of chunk data
-	// read keeps the peak near one copy of the matrix at a small cost (measured on
-	// 1M×50 Parquet: see the package report).
-	b.sinceGC += int64(n) * int64(b.d) * 4 * max(b.gcWeight, 1)
-	if b.sinceGC >= gcEveryBytes {
-		b.sinceGC = 0
-		runtime.GC()
-	}
-}
-
-// gcEveryBytes is the amount of chunk data between forced collections in a read.
-var gcEveryBytes int64 = 32 << 20
+// advance counts the n input rows of the chunk just finished as consumed.
+func (b *builder) advance(n int) { b.seen += int64(n) }
 
 // table returns the finished table, or the empty-table error.
 func (b *builder) table() (*Table, error) {
@@ -434,7 +429,7 @@ func (b *builder) table() (*Table, error) {
 		return nil, inputErr(b.file, "", 0, "empty table (0 rows)")
 	}
 	t := &Table{
-		Matrix:   Matrix{N: int(b.kept), D: b.d},
+		Matrix:   core.Matrix{N: int(b.kept), D: b.d},
 		Features: b.names,
 		Skipped:  b.skipped,
 		Hash:     hex.EncodeToString(b.h.Sum(nil)),
@@ -481,7 +476,7 @@ func (b *builder) truncate(n int) {
 
 // Fingerprint returns the digest that Read gives as Table.Hash to a table whose
 // features are m (see Table.Hash), for matrices made without reading a file.
-func Fingerprint(m Matrix) string {
+func Fingerprint(m core.Matrix) string {
 	b := &builder{d: m.D, h: sha256.New()}
 	var hdr [8]byte
 	binary.LittleEndian.PutUint64(hdr[:], uint64(m.D))

@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"math"
 	"os"
-	"runtime"
 	"slices"
 	"strconv"
 	"strings"
@@ -16,6 +15,8 @@ import (
 	"github.com/apache/arrow/go/v17/arrow/ipc"
 	"github.com/apache/arrow/go/v17/arrow/memory"
 	"github.com/apache/arrow/go/v17/parquet/pqarrow"
+
+	"nightjar/internal/core"
 )
 
 // mnistTable builds a table from the first n MNIST test images (see mnistRows) with
@@ -86,7 +87,7 @@ func TestParquetRoundTrip(t *testing.T) {
 // (hand-worked).
 func TestStringIDRoundTrip(t *testing.T) {
 	tab := &Table{
-		Matrix:   Matrix{N: 3, D: 2, Data: []float32{1, 2, 3, 4, 5, 6}},
+		Matrix:   core.Matrix{N: 3, D: 2, Data: []float32{1, 2, 3, 4, 5, 6}},
 		Features: []string{"a", "b"},
 		ID:       &Column{Name: "key", Strings: []string{"x-1", "x-2", "x-1"}},
 		Label:    &Column{Name: "grp", Ints: []int64{7, -3, 7}},
@@ -367,7 +368,7 @@ func TestCSVIDTurnsText(t *testing.T) {
 // exclusion of id/label; expected selections hand-worked.
 func TestFeatureSelection(t *testing.T) {
 	tab := &Table{
-		Matrix:   Matrix{N: 2, D: 5, Data: []float32{1, 2, 3, 4, 5, 6, 7, 8, 9, 10}},
+		Matrix:   core.Matrix{N: 2, D: 5, Data: []float32{1, 2, 3, 4, 5, 6, 7, 8, 9, 10}},
 		Features: []string{"pc_1", "pc_2", "g7", "pc_10", "score"},
 		ID:       &Column{Name: "pc_id", Ints: []int64{1, 2}},
 		Label:    &Column{Name: "label", Strings: []string{"a", "b"}},
@@ -417,7 +418,7 @@ func TestSkipInvalid(t *testing.T) {
 		t.Error("Hash covers dropped rows")
 	}
 	// Parquet: NaN and ±Inf survive WriteTable and are dropped on reading.
-	tab := &Table{Matrix: Matrix{N: 4, D: 1, Data: []float32{float32(math.NaN()), 1, float32(math.Inf(-1)), 2}}, Features: []string{"v"}}
+	tab := &Table{Matrix: core.Matrix{N: 4, D: 1, Data: []float32{float32(math.NaN()), 1, float32(math.Inf(-1)), 2}}, Features: []string{"v"}}
 	got, err = Read(writeTableFile(t, tab), Options{SkipInvalid: true})
 	if err != nil || got.Skipped != 2 || !equalBits(got.Data, []float32{1, 2}) {
 		t.Fatalf("parquet skip: %v %+v", err, got)
@@ -457,19 +458,17 @@ func TestCSVParallelParse(t *testing.T) {
 	lines[3500] = "NaN" + lines[3500][strings.IndexByte(lines[3500], ','):] // second
 	lines[4500] = "1," + lines[4500]                                        // malformed after both
 	bad := writeTemp(t, "bad.csv", []byte(strings.Join(lines, "\n")))
-	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(0))
-	for _, procs := range []int{1, 2, 4} {
-		runtime.GOMAXPROCS(procs)
-		got, err := Read(good, Options{})
+	for _, threads := range []int{1, 2, 4, 0} {
+		got, err := Read(good, Options{Threads: threads})
 		if err != nil {
 			t.Fatal(err)
 		}
 		if !equalBits(got.Data, want) {
-			t.Fatalf("GOMAXPROCS=%d: values differ", procs)
+			t.Fatalf("%d threads: values differ", threads)
 		}
-		_, err = Read(bad, Options{})
+		_, err = Read(bad, Options{Threads: threads})
 		wantInputError(t, err, bad, "c0", 3100, "value is not a number")
-		_, err = Read(bad, Options{SkipInvalid: true, BatchRows: 4400})
+		_, err = Read(bad, Options{SkipInvalid: true, BatchRows: 4400, Threads: threads})
 		wantInputError(t, err, bad, "", 4500, "wrong number of fields")
 	}
 }

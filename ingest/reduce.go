@@ -2,6 +2,8 @@ package ingest
 
 import (
 	"fmt"
+
+	"nightjar/internal/core"
 )
 
 // ReadReduced reads the table at path like Read, but returns the scores of its rows
@@ -34,9 +36,9 @@ func ReadReduced(path string, opt Options, k int) (*Table, *PCA, error) {
 			userProgress(pass+done, total)
 		}
 	}
-	first, err := read(path, opt, readCtl{sink: func(rows Matrix) error {
+	first, err := read(path, opt, readCtl{sink: func(rows core.Matrix) error {
 		if acc == nil {
-			acc = newCovAcc(rows.D)
+			acc = newCovAcc(rows.D, opt.Threads)
 		}
 		acc.add(rows)
 		return nil
@@ -55,7 +57,7 @@ func ReadReduced(path string, opt Options, k int) (*Table, *PCA, error) {
 	scores := make([]float32, first.N*k)
 	var buf []float64
 	at := 0
-	second, err := read(path, opt, readCtl{noPass: true, sink: func(rows Matrix) error {
+	second, err := read(path, opt, readCtl{noPass: true, sink: func(rows core.Matrix) error {
 		if at+rows.N*k > len(scores) {
 			return inputErr(path, "", 0, "file changed between the two passes of the streaming PCA")
 		}
@@ -63,7 +65,7 @@ func ReadReduced(path string, opt Options, k int) (*Table, *PCA, error) {
 			buf = make([]float64, rows.N*k)
 		}
 		buf = buf[:rows.N*k]
-		p.ProjectTo(buf, rows)
+		p.ProjectTo(buf, rows, opt.Threads)
 		for i, v := range buf {
 			scores[at+i] = float32(v)
 		}
@@ -77,7 +79,7 @@ func ReadReduced(path string, opt Options, k int) (*Table, *PCA, error) {
 		return nil, nil, inputErr(path, "", 0, "file changed between the two passes of the streaming PCA")
 	}
 	t := &Table{
-		Matrix:   Matrix{N: first.N, D: k, Data: scores},
+		Matrix:   core.Matrix{N: first.N, D: k, Data: scores},
 		Features: make([]string, k),
 		ID:       first.ID,
 		Label:    first.Label,

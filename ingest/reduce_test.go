@@ -7,6 +7,8 @@ import (
 	"slices"
 	"strings"
 	"testing"
+
+	"nightjar/internal/core"
 )
 
 // TestReadReduced: the streaming PCA over MNIST test images (every other pixel of
@@ -32,25 +34,25 @@ func TestReadReduced(t *testing.T) {
 			}
 		}
 	}
-	tab.Matrix, tab.Features = Matrix{N: n, D: len(names), Data: data}, names
+	tab.Matrix, tab.Features = core.Matrix{N: n, D: len(names), Data: data}, names
 	path := writeTableFile(t, tab)
 	const k = 6
 	full, err := Read(path, Options{ID: "image", Label: "digit"})
 	if err != nil {
 		t.Fatal(err)
 	}
-	ref, err := FitPCA(full.Matrix, k)
+	ref, err := FitPCA(full.Matrix, k, 2)
 	if err != nil {
 		t.Fatal(err)
 	}
-	refY := ref.Project(full.Matrix)
+	refY := ref.Project(full.Matrix, 2)
 	// Agreement with gonum's stat.PC on the same rows (first two components).
-	checkAgainstGonum(t, Matrix{N: 1500, D: full.D, Data: full.Data[:1500*full.D]}, mustFit(t, Matrix{N: 1500, D: full.D, Data: full.Data[:1500*full.D]}, 2), 2, 1e-7)
+	checkAgainstGonum(t, core.Matrix{N: 1500, D: full.D, Data: full.Data[:1500*full.D]}, mustFit(t, core.Matrix{N: 1500, D: full.D, Data: full.Data[:1500*full.D]}, 2), 2, 1e-7)
 
 	for _, batch := range []int{0, 333, 4096} {
 		t.Run(fmt.Sprint("batch", batch), func(t *testing.T) {
 			var last [2]int64
-			got, p, err := ReadReduced(path, Options{ID: "image", Label: "digit", BatchRows: batch,
+			got, p, err := ReadReduced(path, Options{ID: "image", Label: "digit", BatchRows: batch, Threads: 3,
 				Progress: func(done, total int64) { last = [2]int64{done, total} }}, k)
 			if err != nil {
 				t.Fatal(err)
@@ -76,9 +78,9 @@ func TestReadReduced(t *testing.T) {
 	}
 }
 
-func mustFit(t *testing.T, m Matrix, k int) *PCA {
+func mustFit(t *testing.T, m core.Matrix, k int) *PCA {
 	t.Helper()
-	p, err := FitPCA(m, k)
+	p, err := FitPCA(m, k, 2)
 	if err != nil {
 		t.Fatal(err)
 	}

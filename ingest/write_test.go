@@ -13,6 +13,8 @@ import (
 	"github.com/apache/arrow/go/v17/arrow/memory"
 	"github.com/apache/arrow/go/v17/parquet/file"
 	"github.com/apache/arrow/go/v17/parquet/pqarrow"
+
+	"nightjar/internal/core"
 )
 
 // closeRecorder is a writer that notes whether Close was called.
@@ -133,8 +135,8 @@ func TestWriteErrors(t *testing.T) {
 		{"short id", WriteEmbedding(&bytes.Buffer{}, &Column{Ints: []int64{1}}, nil, y, 2)},
 		{"name clash", WriteEmbedding(&bytes.Buffer{}, &Column{Name: "map_1", Ints: []int64{1, 2}}, nil, y, 2)},
 		{"write fails", WriteEmbedding(&failWriter{after: 100}, nil, nil, make([]float64, 20000), 2)},
-		{"table shape", WriteTable(&bytes.Buffer{}, &Table{Matrix: Matrix{N: 2, D: 2, Data: []float32{1}}, Features: []string{"a", "b"}})},
-		{"table names", WriteTable(&bytes.Buffer{}, &Table{Matrix: Matrix{N: 1, D: 2, Data: []float32{1, 2}}, Features: []string{"a"}})},
+		{"table shape", WriteTable(&bytes.Buffer{}, &Table{Matrix: core.Matrix{N: 2, D: 2, Data: []float32{1}}, Features: []string{"a", "b"}})},
+		{"table names", WriteTable(&bytes.Buffer{}, &Table{Matrix: core.Matrix{N: 1, D: 2, Data: []float32{1, 2}}, Features: []string{"a"}})},
 	}
 	for _, c := range cases {
 		if c.err == nil {
