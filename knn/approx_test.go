@@ -10,23 +10,23 @@ import (
 	"sync/atomic"
 	"testing"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
 )
 
-// Tests of Approx and Refine. The reference throughout is Exact (the O(N²)
+// Tests of HNSW, Descent and Refine. The reference throughout is Exact (the O(N²)
 // search of exact.go) and, for distances, a plain float64 sum of squared
 // differences written here. Data are invented (clustered Gaussians with
 // decaying variance per column, the shape of PCA-reduced feature tables).
 
 // axClustered returns n rows in d columns drawn around `clusters` random
 // centres; column j is scaled by 1/√(j+1), cluster c has spread 0.5+0.25·(c mod 4).
-func axClustered(n, d, clusters int, seed uint64) ingest.Matrix {
+func axClustered(n, d, clusters int, seed uint64) core.Matrix {
 	r := rand.New(rand.NewPCG(seed, 77))
 	cent := make([]float64, clusters*d)
 	for i := range cent {
 		cent[i] = 3 * r.NormFloat64() / math.Sqrt(float64(i%d+1))
 	}
-	x := ingest.Matrix{N: n, D: d, Data: make([]float32, n*d)}
+	x := core.Matrix{N: n, D: d, Data: make([]float32, n*d)}
 	for i := 0; i < n; i++ {
 		c := r.IntN(clusters)
 		w := 0.5 + 0.25*float64(c%4)
@@ -38,7 +38,7 @@ func axClustered(n, d, clusters int, seed uint64) ingest.Matrix {
 }
 
 // axRecall is |approx(i) ∩ exact(i)| / k averaged over all rows.
-func axRecall(a, e *Graph) float64 {
+func axRecall(a, e *core.Graph) float64 {
 	hits := 0
 	for i := 0; i < a.N; i++ {
 		hits += countCommon(slices.Clone(a.Index[i*a.K:(i+1)*a.K]), slices.Clone(e.Index[i*e.K:(i+1)*e.K]))
@@ -48,9 +48,9 @@ func axRecall(a, e *Graph) float64 {
 
 // axRandomGraph returns a graph of k distinct random neighbours per row (never
 // the row itself), distances left at zero: Refine recomputes them.
-func axRandomGraph(n, k int, seed uint64) *Graph {
+func axRandomGraph(n, k int, seed uint64) *core.Graph {
 	r := rand.New(rand.NewPCG(seed, 5))
-	g := &Graph{N: n, K: k, Index: make([]int32, n*k), Dist2: make([]float32, n*k)}
+	g := &core.Graph{N: n, K: k, Index: make([]int32, n*k), Dist2: make([]float32, n*k)}
 	for i := 0; i < n; i++ {
 		seen := map[int32]bool{int32(i): true}
 		for j := 0; j < k; j++ {
@@ -68,7 +68,7 @@ func axRandomGraph(n, k int, seed uint64) *Graph {
 // axCheckGraph checks the Graph contract: exactly k distinct neighbours per
 // row, never the row itself, distances equal to a float64 sum of squared
 // differences (rounded to float32) on rows, sorted by (distance, index).
-func axCheckGraph(t *testing.T, g *Graph, rows ingest.Matrix, k int) {
+func axCheckGraph(t *testing.T, g *core.Graph, rows core.Matrix, k int) {
 	t.Helper()
 	if g.N != rows.N || g.K != k || len(g.Index) != g.N*k || len(g.Dist2) != g.N*k {
 		t.Fatalf("graph shape N=%d K=%d len %d/%d, want N=%d K=%d", g.N, g.K, len(g.Index), len(g.Dist2), rows.N, k)
@@ -99,7 +99,7 @@ func axCheckGraph(t *testing.T, g *Graph, rows ingest.Matrix, k int) {
 	}
 }
 
-// TestApproxRecall compares Approx with Exact on small clustered tables. The
+// TestApproxRecall compares HNSW and Descent with Exact on small clustered tables. The
 // thresholds: NN-descent at convergence reaches recall ≈ 0.99 on data of this
 // dimension (Dong, Charikar & Li 2011, WWW, Fig. 3 and Table 3: 0.95–0.99 at
 // K = 20 on 20–100-d sets with ρ = 0.5, from memory); we ask 0.97, and the
@@ -114,21 +114,30 @@ func TestApproxRecall(t *testing.T) {
 		minRecall    float64
 		shards, pass int
 		indexRows    int
-		build        func(ingest.Matrix, int, ApproxOptions) (*Graph, ApproxStats, error)
+		method       Method
 	}{
-		{"clustered 5000×20 k=30", 5000, 20, 25, 30, Euclidean, 2, 0.97, 0, 8, 0, Approx},
-		{"clustered 5000×20 k=30 index on 600 rows", 5000, 20, 25, 30, Euclidean, 2, 0.97, 0, 8, 600, Approx},
-		{"clustered 3000×10 k=15 two shards", 3000, 10, 10, 15, Euclidean, 2, 0.97, 2, 8, 0, Approx},
-		{"clustered 3000×30 k=10 cosine", 3000, 30, 15, 10, Cosine, 1, 0.97, 2, 8, 0, Approx},
-		{"descent only 4000×20 k=30", 4000, 20, 25, 30, Euclidean, 2, 0.97, 0, 10, 0, Descent},
+		{"clustered 5000×20 k=30", 5000, 20, 25, 30, Euclidean, 2, 0.97, 0, 8, 0, ByHNSW},
+		{"clustered 5000×20 k=30 index on 600 rows", 5000, 20, 25, 30, Euclidean, 2, 0.97, 0, 8, 600, ByHNSW},
+		{"clustered 3000×10 k=15 two shards", 3000, 10, 10, 15, Euclidean, 2, 0.97, 2, 8, 0, ByHNSW},
+		{"clustered 3000×30 k=10 cosine", 3000, 30, 15, 10, Cosine, 1, 0.97, 2, 8, 0, ByHNSW},
+		{"descent only 4000×20 k=30", 4000, 20, 25, 30, Euclidean, 2, 0.97, 0, 10, 0, ByDescent},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			x := axClustered(c.n, c.d, c.c, 11)
-			opt := DefaultApprox(c.n, c.k)
-			opt.Threads, opt.Metric, opt.Shards, opt.MaxPasses = c.threads, c.metric, c.shards, c.pass
-			opt.IndexRows = c.indexRows
-			g, st, err := c.build(x, c.k, opt)
+			var g *core.Graph
+			var st Stats
+			var err error
+			if c.method == ByHNSW {
+				opt := DefaultHNSW(c.k)
+				opt.Threads, opt.Metric, opt.Shards, opt.MaxPasses = c.threads, c.metric, c.shards, c.pass
+				opt.IndexRows = c.indexRows
+				g, st, err = HNSW(x, c.k, opt)
+			} else {
+				opt := DefaultDescent(c.k)
+				opt.Threads, opt.Metric, opt.MaxPasses = c.threads, c.metric, c.pass
+				g, st, err = Descent(x, c.k, opt)
+			}
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -137,7 +146,7 @@ func TestApproxRecall(t *testing.T) {
 				t.Fatal(err)
 			}
 			axCheckGraph(t, g, rows, c.k)
-			e, err := Exact(x, c.k, Options{Metric: c.metric})
+			e, err := Exact(x, c.k, ExactOptions{Options: Options{Metric: c.metric}})
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -160,33 +169,33 @@ func TestApproxRecall(t *testing.T) {
 func TestApproxRefineNeverWorse(t *testing.T) {
 	x := axClustered(3000, 16, 12, 3)
 	const k = 20
-	e, err := Exact(x, k, Options{})
+	e, err := Exact(x, k, ExactOptions{})
 	if err != nil {
 		t.Fatal(err)
 	}
-	raw := DefaultApprox(x.N, k)
+	raw := DefaultHNSW(k)
 	raw.MaxPasses = 0
-	hnswGraph, _, err := Approx(x, k, raw)
+	hnswGraph, _, err := HNSW(x, k, raw)
 	if err != nil {
 		t.Fatal(err)
 	}
 	starts := []struct {
 		name string
-		g    *Graph
+		g    *core.Graph
 	}{
 		{"random", axRandomGraph(x.N, k, 9)},
 		{"hnsw raw", hnswGraph},
 	}
 	for _, s := range starts {
 		for _, passes := range []int{1, 3} {
-			g := &Graph{N: s.g.N, K: s.g.K, Index: slices.Clone(s.g.Index), Dist2: slices.Clone(s.g.Dist2)}
+			g := &core.Graph{N: s.g.N, K: s.g.K, Index: slices.Clone(s.g.Index), Dist2: slices.Clone(s.g.Dist2)}
 			// Zero passes recomputes and sorts: the "before" graph.
-			opt := DefaultApprox(x.N, k)
+			opt := DefaultRefine()
 			opt.MaxPasses = 0
 			if _, err := Refine(g, x, opt); err != nil {
 				t.Fatal(err)
 			}
-			before := &Graph{N: g.N, K: g.K, Index: slices.Clone(g.Index), Dist2: slices.Clone(g.Dist2)}
+			before := &core.Graph{N: g.N, K: g.K, Index: slices.Clone(g.Index), Dist2: slices.Clone(g.Dist2)}
 			opt.MaxPasses, opt.Delta = passes, 1e-12
 			if _, err := Refine(g, x, opt); err != nil {
 				t.Fatal(err)
@@ -207,16 +216,16 @@ func TestApproxRefineNeverWorse(t *testing.T) {
 }
 
 // TestApproxThreadsIdentical: Refine must give the same bits for any thread
-// count (fixed-size blocks, order-free list updates; DESIGN.md "Parallel work
-// and determinism"). Run under -race too.
+// count (fixed-size blocks, order-free list updates: see descent_refine.go).
+// Run under -race too.
 func TestApproxThreadsIdentical(t *testing.T) {
 	x := axClustered(2500, 12, 8, 5)
 	const k = 15
 	start := axRandomGraph(x.N, k, 4)
-	var ref *Graph
+	var ref *core.Graph
 	for _, threads := range []int{1, 2, 3, 8} {
-		g := &Graph{N: start.N, K: k, Index: slices.Clone(start.Index), Dist2: slices.Clone(start.Dist2)}
-		opt := DefaultApprox(x.N, k)
+		g := &core.Graph{N: start.N, K: k, Index: slices.Clone(start.Index), Dist2: slices.Clone(start.Dist2)}
+		opt := DefaultRefine()
 		opt.Threads, opt.MaxPasses, opt.Seed = threads, 4, 42
 		st, err := Refine(g, x, opt)
 		if err != nil {
@@ -231,10 +240,10 @@ func TestApproxThreadsIdentical(t *testing.T) {
 			t.Fatalf("threads %d: graph differs from threads 1", threads)
 		}
 	}
-	// Descent (random start, then Refine) is reproducible end to end.
-	var first *Graph
+	// Descent (tree start, then refinement) is reproducible end to end.
+	var first *core.Graph
 	for _, threads := range []int{1, 2, 5} {
-		opt := DefaultApprox(x.N, k)
+		opt := DefaultDescent(k)
 		opt.Threads, opt.MaxPasses = threads, 3
 		g, _, err := Descent(x, k, opt)
 		if err != nil {
@@ -247,8 +256,8 @@ func TestApproxThreadsIdentical(t *testing.T) {
 		}
 	}
 	// A different seed samples differently: the passes are not a no-op.
-	g := &Graph{N: start.N, K: k, Index: slices.Clone(start.Index), Dist2: slices.Clone(start.Dist2)}
-	opt := DefaultApprox(x.N, k)
+	g := &core.Graph{N: start.N, K: k, Index: slices.Clone(start.Index), Dist2: slices.Clone(start.Dist2)}
+	opt := DefaultRefine()
 	opt.MaxPasses, opt.Seed = 1, 43
 	if _, err := Refine(g, x, opt); err != nil {
 		t.Fatal(err)
@@ -264,25 +273,25 @@ func TestApproxThreadsIdentical(t *testing.T) {
 func TestApproxDuplicates(t *testing.T) {
 	base := axClustered(60, 8, 4, 8)
 	const copies, k = 25, 20
-	x := ingest.Matrix{N: base.N * copies, D: base.D, Data: make([]float32, 0, base.N*copies*base.D)}
+	x := core.Matrix{N: base.N * copies, D: base.D, Data: make([]float32, 0, base.N*copies*base.D)}
 	for c := 0; c < copies; c++ {
 		x.Data = append(x.Data, base.Data...)
 	}
 	for _, m := range []Metric{Euclidean, Cosine} {
-		opt := DefaultApprox(x.N, k)
+		opt := DefaultHNSW(k)
 		opt.Metric = m
 		// Passes until nothing changes: the HNSW start differs from run to
-		// run (see Approx), and with 25 exact copies of every row the
+		// run (see hnsw.go), and with 25 exact copies of every row the
 		// default stopping rules may end one update short (with ties, the
 		// estimated recall can reach its target with entries still wrong).
 		opt.MaxPasses, opt.Delta, opt.StopRecall = 12, 1e-12, 2
-		g, _, err := Approx(x, k, opt)
+		g, _, err := HNSW(x, k, opt)
 		if err != nil {
 			t.Fatal(err)
 		}
 		rows, _ := metricRows(x, m)
 		axCheckGraph(t, g, rows, k)
-		e, err := Exact(x, k, Options{Metric: m})
+		e, err := Exact(x, k, ExactOptions{Options: Options{Metric: m}})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -306,7 +315,7 @@ func TestApproxCosine(t *testing.T) {
 			x.Data[i*x.D+j] *= s
 		}
 	}
-	nx := ingest.Matrix{N: x.N, D: x.D, Data: make([]float32, len(x.Data))}
+	nx := core.Matrix{N: x.N, D: x.D, Data: make([]float32, len(x.Data))}
 	for i := 0; i < x.N; i++ {
 		var s float64
 		for _, v := range x.Data[i*x.D : (i+1)*x.D] {
@@ -319,9 +328,9 @@ func TestApproxCosine(t *testing.T) {
 	}
 	const k = 12
 	start := axRandomGraph(x.N, k, 2)
-	run := func(m ingest.Matrix, metric Metric) *Graph {
-		g := &Graph{N: start.N, K: k, Index: slices.Clone(start.Index), Dist2: slices.Clone(start.Dist2)}
-		opt := DefaultApprox(x.N, k)
+	run := func(m core.Matrix, metric Metric) *core.Graph {
+		g := &core.Graph{N: start.N, K: k, Index: slices.Clone(start.Index), Dist2: slices.Clone(start.Dist2)}
+		opt := DefaultRefine()
 		opt.Metric, opt.MaxPasses = metric, 10
 		if _, err := Refine(g, m, opt); err != nil {
 			t.Fatal(err)
@@ -332,14 +341,14 @@ func TestApproxCosine(t *testing.T) {
 	if !slices.Equal(gc.Index, ge.Index) || !slices.Equal(gc.Dist2, ge.Dist2) {
 		t.Fatalf("cosine graph differs from Euclidean graph of normalised rows")
 	}
-	e, err := Exact(x, k, Options{Metric: Cosine})
+	e, err := Exact(x, k, ExactOptions{Options: Options{Metric: Cosine}})
 	if err != nil {
 		t.Fatal(err)
 	}
 	if r := axRecall(gc, e); r < 0.97 {
 		t.Errorf("cosine recall %.4f < 0.97", r)
 	}
-	xe, err := Exact(x, k, Options{Metric: Euclidean})
+	xe, err := Exact(x, k, ExactOptions{Options: Options{Metric: Euclidean}})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -353,7 +362,7 @@ func TestApproxErrors(t *testing.T) {
 	x := axClustered(50, 4, 3, 1)
 	zero := axClustered(50, 4, 3, 1)
 	clear(zero.Data[7*4 : 8*4])
-	bad := func(f func(g *Graph)) *Graph {
+	bad := func(f func(g *core.Graph)) *core.Graph {
 		g := axRandomGraph(50, 5, 1)
 		f(g)
 		return g
@@ -362,16 +371,17 @@ func TestApproxErrors(t *testing.T) {
 		name string
 		run  func() error
 	}{
-		{"k = N", func() error { _, _, err := Approx(x, 50, DefaultApprox(50, 50)); return err }},
-		{"k = 0", func() error { _, _, err := Approx(x, 0, DefaultApprox(50, 0)); return err }},
+		{"k = N", func() error { _, _, err := HNSW(x, 50, DefaultHNSW(50)); return err }},
+		{"k = 0", func() error { _, _, err := HNSW(x, 0, DefaultHNSW(0)); return err }},
 		{"short data", func() error {
-			_, _, err := Approx(ingest.Matrix{N: 50, D: 4, Data: x.Data[:10]}, 5, DefaultApprox(50, 5))
+			_, _, err := HNSW(core.Matrix{N: 50, D: 4, Data: x.Data[:10]}, 5, DefaultHNSW(5))
 			return err
 		}},
+		{"descent k = N", func() error { _, _, err := Descent(x, 50, DefaultDescent(50)); return err }},
 		{"cosine zero row", func() error {
-			o := DefaultApprox(50, 5)
+			o := DefaultHNSW(5)
 			o.Metric = Cosine
-			_, _, err := Approx(zero, 5, o)
+			_, _, err := HNSW(zero, 5, o)
 			var z *ZeroRowError
 			if err != nil && !errors.As(err, &z) {
 				t.Errorf("zero row error is %T, want *ZeroRowError", err)
@@ -379,19 +389,19 @@ func TestApproxErrors(t *testing.T) {
 			return err
 		}},
 		{"self neighbour", func() error {
-			_, err := Refine(bad(func(g *Graph) { g.Index[3*5+2] = 3 }), x, DefaultApprox(50, 5))
+			_, err := Refine(bad(func(g *core.Graph) { g.Index[3*5+2] = 3 }), x, DefaultRefine())
 			return err
 		}},
 		{"repeated neighbour", func() error {
-			_, err := Refine(bad(func(g *Graph) { g.Index[4*5+1] = g.Index[4*5] }), x, DefaultApprox(50, 5))
+			_, err := Refine(bad(func(g *core.Graph) { g.Index[4*5+1] = g.Index[4*5] }), x, DefaultRefine())
 			return err
 		}},
 		{"out of range", func() error {
-			_, err := Refine(bad(func(g *Graph) { g.Index[9] = 50 }), x, DefaultApprox(50, 5))
+			_, err := Refine(bad(func(g *core.Graph) { g.Index[9] = 50 }), x, DefaultRefine())
 			return err
 		}},
 		{"row count", func() error {
-			_, err := Refine(axRandomGraph(40, 5, 1), x, DefaultApprox(50, 5))
+			_, err := Refine(axRandomGraph(40, 5, 1), x, DefaultRefine())
 			return err
 		}},
 	}
@@ -409,9 +419,9 @@ func TestApproxSmallTables(t *testing.T) {
 	for _, n := range []int{2, 3, 10, 40} {
 		x := axClustered(n, 3, 2, uint64(n))
 		k := n - 1
-		opt := DefaultApprox(n, k)
+		opt := DefaultHNSW(k)
 		opt.Shards = 4
-		g, _, err := Approx(x, k, opt)
+		g, _, err := HNSW(x, k, opt)
 		if err != nil {
 			t.Fatalf("n=%d: %v", n, err)
 		}
@@ -424,15 +434,15 @@ func TestApproxSmallTables(t *testing.T) {
 func TestApproxProgress(t *testing.T) {
 	x := axClustered(1500, 6, 4, 2)
 	last := map[string]int64{}
-	opt := DefaultApprox(x.N, 10)
+	opt := DefaultHNSW(10)
 	opt.MaxPasses = 2
-	opt.PhaseProgress = func(phase string, done, total int64) {
+	opt.Progress = func(phase string, done, total int64) {
 		if done > total || total != int64(x.N) || done < last[phase] {
 			t.Errorf("phase %s: done %d of %d after %d", phase, done, total, last[phase])
 		}
 		last[phase] = done
 	}
-	if _, _, err := Approx(x, 10, opt); err != nil {
+	if _, _, err := HNSW(x, 10, opt); err != nil {
 		t.Fatal(err)
 	}
 	for _, p := range []string{"build", "query", "refine 1"} {
@@ -461,7 +471,7 @@ func TestApproxInsertOrderFree(t *testing.T) {
 	}
 	var ref []int32
 	for trial := uint64(0); trial < 20; trial++ {
-		g := &Graph{N: 40, K: k, Index: make([]int32, 40*k), Dist2: make([]float32, 40*k)}
+		g := &core.Graph{N: 40, K: k, Index: make([]int32, 40*k), Dist2: make([]float32, 40*k)}
 		for j := 0; j < k; j++ {
 			g.Index[j], g.Dist2[j] = int32(100+j), 10 // row 0 starts with far entries
 		}
@@ -490,23 +500,20 @@ func TestApproxInsertOrderFree(t *testing.T) {
 	}
 }
 
-// TestApproxRestoresGCPercent: Approx lowers GOGC while it queries the index,
-// Descent while it runs (see hnsw.go); both must leave the caller's setting as
-// they found it, including a setting stricter than theirs and a collector
-// turned off (−1).
-func TestApproxRestoresGCPercent(t *testing.T) {
+// TestApproxLeavesGCPercent: the searches change no process-wide setting,
+// so the caller's GOGC, including a collector turned off (−1), is what it was.
+func TestApproxLeavesGCPercent(t *testing.T) {
 	x := axClustered(400, 4, 3, 5)
-	builds := map[string]func(ingest.Matrix, int, ApproxOptions) (*Graph, ApproxStats, error){"Approx": Approx, "Descent": Descent}
-	for name, build := range builds {
-		for _, gc := range []int{100, 50, queryGCPercent - 10, -1} {
+	for _, m := range []Method{ByExact, ByDescent, ByHNSW} {
+		for _, gc := range []int{100, 50, 10, -1} {
 			prev := debug.SetGCPercent(gc)
-			_, _, err := build(x, 5, DefaultApprox(x.N, 5))
+			_, _, err := Build(x, 5, m, BuildOptions{})
 			got := debug.SetGCPercent(prev)
 			if err != nil {
 				t.Fatal(err)
 			}
 			if got != gc {
-				t.Errorf("GOGC %d before %s, %d after", gc, name, got)
+				t.Errorf("GOGC %d before %v, %d after", gc, m, got)
 			}
 		}
 	}

@@ -3,8 +3,11 @@ package knn
 import (
 	"fmt"
 	"math/rand/v2"
+	"runtime"
 	"syscall"
 	"testing"
+
+	"nightjar/internal/core"
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas32"
@@ -21,7 +24,7 @@ func BenchmarkExact(b *testing.B) {
 			b.ResetTimer()
 			cpu0 := cpuSeconds()
 			for b.Loop() {
-				if _, err := Exact(x, 90, Options{}); err != nil {
+				if _, err := Exact(x, 90, ExactOptions{Options: Options{Threads: runtime.GOMAXPROCS(0)}}); err != nil {
 					b.Fatal(err)
 				}
 			}
@@ -125,8 +128,8 @@ func cpuSeconds() float64 {
 // syntheticGraph returns an N×k graph where row i's neighbours are k distinct
 // rows at random offsets in [1, 4k) from i (mod N), with increasing distances:
 // local, so that many but not all edges are mutual, as in real kNN graphs.
-func syntheticGraph(n, k int) *Graph {
-	g := &Graph{N: n, K: k, Index: make([]int32, n*k), Dist2: make([]float32, n*k)}
+func syntheticGraph(n, k int) *core.Graph {
+	g := &core.Graph{N: n, K: k, Index: make([]int32, n*k), Dist2: make([]float32, n*k)}
 	r := rand.New(rand.NewPCG(5, 6))
 	used := make(map[int]bool, k)
 	for i := 0; i < n; i++ {
@@ -150,14 +153,14 @@ func syntheticGraph(n, k int) *Graph {
 }
 
 // BenchmarkAffinity measures Affinity at N = 100,000, k = 90, perplexity 30 on
-// a synthetic graph.
+// a synthetic graph, on all cores.
 func BenchmarkAffinity(b *testing.B) {
 	g := syntheticGraph(100_000, 90)
 	b.ResetTimer()
 	cpu0 := cpuSeconds()
 	var entries int
 	for b.Loop() {
-		P, err := Affinity(g, 30, 0)
+		P, err := Affinity(g, 30, runtime.GOMAXPROCS(0))
 		if err != nil {
 			b.Fatal(err)
 		}

@@ -4,12 +4,12 @@ import (
 	"fmt"
 	"slices"
 	"sync"
-	"sync/atomic"
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas32"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
+	"nightjar/internal/par"
 )
 
 // ExactLimit is the largest number of rows Exact accepts. Exact costs N²·D
@@ -19,7 +19,7 @@ import (
 // wall time on 2 idle cores. At the limit, 200,000 rows, that is about
 // 3 minutes on 2 idle cores (6 CPU-minutes), the most an exact reference path
 // should cost; above it the time grows fourfold per doubling of N and the
-// approximate method (HNSW with NN-descent refinement) is the only sensible one.
+// approximate methods (Descent, HNSW) are the only sensible ones.
 const ExactLimit = 200_000
 
 // Block sizes of the exact search. A block of queryBlock query rows is the unit
@@ -33,6 +33,15 @@ const (
 	refTile    = 192
 )
 
+// ExactOptions configure Exact and ExactRows.
+type ExactOptions struct {
+	Options
+	// Progress, when non-nil, is called after each finished block of 64
+	// rows with the number of rows done so far and the total. Calls are
+	// serialised and done is increasing; the last call has done == total.
+	Progress func(done, total int64)
+}
+
 // TooLargeError is returned by Exact for more rows than ExactLimit.
 type TooLargeError struct {
 	Rows, Limit int
@@ -40,7 +49,7 @@ type TooLargeError struct {
 
 // Error says how many rows were given and what to use instead.
 func (e *TooLargeError) Error() string {
-	return fmt.Sprintf("exact neighbours are limited to %d rows (the cost grows as N²), this table has %d: use an approximate method (--neighbours descent or auto)", e.Limit, e.Rows)
+	return fmt.Sprintf("exact neighbours are limited to %d rows (the cost grows as N²), this table has %d: use an approximate method (descent or hnsw)", e.Limit, e.Rows)
 }
 
 // Exact returns the exact k-nearest-neighbour graph of the N rows of x under
@@ -50,14 +59,13 @@ func (e *TooLargeError) Error() string {
 // bit-identical for any opt.Threads. A row is never its own neighbour, but an
 // exact duplicate of it is a neighbour at distance 0. Each distance is the sum
 // of squared coordinate differences accumulated in float64 and rounded once to
-// float32 (under Cosine, of the L2-normalised rows). opt.Progress, if set, is
-// called after every block of 64 rows.
+// float32 (under Cosine, of the L2-normalised rows).
 //
 // Preconditions: 1 ≤ k ≤ N−1 and N ≤ ExactLimit (else a *TooLargeError);
 // len(x.Data) == N·D. Under Cosine, a row of zeros gives a *ZeroRowError.
 // Memory: a centred copy of x (N·D float32; under Cosine also a normalised
 // copy) plus the N×k result.
-func Exact(x ingest.Matrix, k int, opt Options) (*Graph, error) {
+func Exact(x core.Matrix, k int, opt ExactOptions) (*core.Graph, error) {
 	if x.N > ExactLimit {
 		return nil, &TooLargeError{Rows: x.N, Limit: ExactLimit}
 	}
@@ -65,7 +73,7 @@ func Exact(x ingest.Matrix, k int, opt Options) (*Graph, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &Graph{N: x.N, K: k, Index: idx, Dist2: d2}, nil
+	return &core.Graph{N: x.N, K: k, Index: idx, Dist2: d2}, nil
 }
 
 // ExactRows returns the exact k nearest neighbours, among all N rows of x, of
@@ -76,7 +84,7 @@ func Exact(x ingest.Matrix, k int, opt Options) (*Graph, error) {
 // under Cosine a normalised one). Progress counts listed rows.
 //
 // Preconditions: 1 ≤ k ≤ N−1; every listed row in [0, N) (else an error).
-func ExactRows(x ingest.Matrix, rows []int32, k int, opt Options) (index []int32, dist2 []float32, err error) {
+func ExactRows(x core.Matrix, rows []int32, k int, opt ExactOptions) (index []int32, dist2 []float32, err error) {
 	for q, r := range rows {
 		if r < 0 || int(r) >= x.N {
 			return nil, nil, fmt.Errorf("exact neighbours: row %d of the list is %d, outside [0, %d)", q, r, x.N)
@@ -113,7 +121,7 @@ func ExactRows(x ingest.Matrix, rows []int32, k int, opt Options) (index []int32
 // the additions (Higham, Accuracy and Stability of Numerical Algorithms, §3.1).
 // So the result is the exact k smallest by (dist2, index), duplicates get
 // exactly 0, and the screen only saves work.
-func search(x ingest.Matrix, rows []int32, k int, opt Options) ([]int32, []float32, error) {
+func search(x core.Matrix, rows []int32, k int, opt ExactOptions) ([]int32, []float32, error) {
 	if x.N < 2 {
 		return nil, nil, fmt.Errorf("exact neighbours: need at least 2 rows, got %d", x.N)
 	}
@@ -132,36 +140,24 @@ func search(x ingest.Matrix, rows []int32, k int, opt Options) ([]int32, []float
 	}
 	index := make([]int32, nq*k)
 	dist := make([]float32, nq*k)
-	nblocks := (nq + queryBlock - 1) / queryBlock
 	coef := float32(2 * float64(m.D+8) * 0x1p-24)
 
-	var next atomic.Int64
+	threads := opt.threads()
+	scratch := make([]*exactScratch, threads) // one per worker, made on first use
 	var mu sync.Mutex
 	var done int64
-	var wg sync.WaitGroup
-	workers := min(opt.threads(), nblocks)
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			s := newExactScratch(m.D, k)
-			for {
-				b := int(next.Add(1)) - 1
-				if b >= nblocks {
-					return
-				}
-				lo, hi := b*queryBlock, min((b+1)*queryBlock, nq)
-				s.block(m, c, norms, rows, lo, hi, k, coef, index[lo*k:hi*k], dist[lo*k:hi*k])
-				if opt.Progress != nil {
-					mu.Lock()
-					done += int64(hi - lo)
-					opt.Progress(done, int64(nq))
-					mu.Unlock()
-				}
-			}
-		}()
-	}
-	wg.Wait()
+	par.Blocks(nq, queryBlock, threads, func(w, _, lo, hi int) {
+		if scratch[w] == nil {
+			scratch[w] = newExactScratch(m.D, k)
+		}
+		scratch[w].block(m, c, norms, rows, lo, hi, k, coef, index[lo*k:hi*k], dist[lo*k:hi*k])
+		if opt.Progress != nil {
+			mu.Lock()
+			done += int64(hi - lo)
+			opt.Progress(done, int64(nq))
+			mu.Unlock()
+		}
+	})
 	return index, dist, nil
 }
 
@@ -173,7 +169,7 @@ func search(x ingest.Matrix, rows []int32, k int, opt Options) ([]int32, []float
 // zeros. With the tile transposed, blas32.Gemm runs its A·B path, which is
 // made of axpy operations of length refTile instead of dot products of length D:
 // 1.5–1.8× faster at D = 50 on the project machine (BenchmarkDistanceTile).
-func centreRows(m ingest.Matrix) ([]float32, []float32) {
+func centreRows(m core.Matrix) ([]float32, []float32) {
 	mean := make([]float64, m.D)
 	for i := 0; i < m.N; i++ {
 		for j, v := range m.Data[i*m.D : (i+1)*m.D] {
@@ -230,7 +226,7 @@ func newExactScratch(d, k int) *exactScratch {
 
 // block finds the neighbours of queries lo..hi−1 (positions in rows, or row
 // numbers when rows is nil) and writes them, sorted, into index and dist.
-func (s *exactScratch) block(m ingest.Matrix, c, norms []float32, rows []int32, lo, hi, k int, coef float32, index []int32, dist []float32) {
+func (s *exactScratch) block(m core.Matrix, c, norms []float32, rows []int32, lo, hi, k int, coef float32, index []int32, dist []float32) {
 	D, N, bn := m.D, m.N, hi-lo
 	qid := func(q int) int {
 		if rows == nil {
@@ -299,6 +295,12 @@ func (s *exactScratch) block(m ingest.Matrix, c, norms []float32, rows []int32, 
 			}
 		}
 	}
+	s.emit(bn, k, index, dist)
+}
+
+// emit sorts the heaps of the first bn queries, nearest first, into index
+// and dist.
+func (s *exactScratch) emit(bn, k int, index []int32, dist []float32) {
 	for q := 0; q < bn; q++ {
 		h := s.heap[q*k : (q+1)*k]
 		slices.SortFunc(h, func(a, b exCand) int {

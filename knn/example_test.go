@@ -3,7 +3,7 @@ package knn_test
 import (
 	"fmt"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
 	"nightjar/knn"
 )
 
@@ -11,10 +11,10 @@ import (
 // neighbour graph, then the t-SNE input affinities P at perplexity 1.5
 // (which needs k = ⌊3·1.5⌋ = 4 neighbours per row and at least 3·1.5+1 rows).
 func Example() {
-	x := ingest.Matrix{N: 6, D: 1, Data: []float32{0, 1, 3, 10, 11.5, 14}}
+	x := core.Matrix{N: 6, D: 1, Data: []float32{0, 1, 3, 10, 11.5, 14}}
 	perplexity := 1.5
 	k := knn.Neighbours(perplexity, x.N)
-	g, err := knn.Exact(x, k, knn.Options{Metric: knn.Euclidean})
+	g, err := knn.Exact(x, k, knn.ExactOptions{Options: knn.Options{Metric: knn.Euclidean}})
 	if err != nil {
 		fmt.Println(err)
 		return
@@ -23,7 +23,7 @@ func Example() {
 	fmt.Println("row 0 neighbours:", g.Index[0:k], "d²:", g.Dist2[0:k])
 	fmt.Println("row 4 neighbours:", g.Index[4*k:5*k], "d²:", g.Dist2[4*k:5*k])
 
-	P, err := knn.Affinity(g, perplexity, 0)
+	P, err := knn.Affinity(g, perplexity, 1)
 	if err != nil {
 		fmt.Println(err)
 		return

@@ -3,10 +3,9 @@ package knn
 import (
 	"fmt"
 	"math"
-	"runtime"
 	"strings"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
 )
 
 // Metric selects the distance between rows. Every distance this package
@@ -46,25 +45,17 @@ func ParseMetric(s string) (Metric, error) {
 	return 0, fmt.Errorf("unknown metric %q (want euclidean or cosine)", s)
 }
 
-// Options control the neighbour searches of this package.
+// Options are the settings every search of this package takes.
 type Options struct {
-	// Threads is the number of goroutines; ≤ 0 means runtime.GOMAXPROCS(0).
-	// The results do not depend on it.
+	// Threads is the number of goroutines; below 1 means 1. The results do
+	// not depend on it.
 	Threads int
 	// Metric is the distance between rows.
 	Metric Metric
-	// Progress, when non-nil, is called after each finished block of rows with
-	// the number of rows done so far and the total. Calls are serialised and
-	// done is increasing; the last call has done == total.
-	Progress func(done, total int64)
 }
 
-func (o Options) threads() int {
-	if o.Threads > 0 {
-		return o.Threads
-	}
-	return runtime.GOMAXPROCS(0)
-}
+// threads returns Threads, at least 1.
+func (o Options) threads() int { return max(1, o.Threads) }
 
 // ZeroRowError reports a row of zeros met under the Cosine metric, where a
 // row's direction is undefined. Row is the 0-based row index; the message
@@ -80,9 +71,9 @@ func (e *ZeroRowError) Error() string {
 
 // metricRows returns the rows the squared Euclidean distances are taken on: x
 // itself for Euclidean (no copy), or a normalised copy for Cosine.
-func metricRows(x ingest.Matrix, m Metric) (ingest.Matrix, error) {
+func metricRows(x core.Matrix, m Metric) (core.Matrix, error) {
 	if len(x.Data) != x.N*x.D {
-		return ingest.Matrix{}, fmt.Errorf("matrix is %d×%d but holds %d values", x.N, x.D, len(x.Data))
+		return core.Matrix{}, fmt.Errorf("matrix is %d×%d but holds %d values", x.N, x.D, len(x.Data))
 	}
 	switch m {
 	case Euclidean:
@@ -90,13 +81,13 @@ func metricRows(x ingest.Matrix, m Metric) (ingest.Matrix, error) {
 	case Cosine:
 		return normaliseRows(x)
 	}
-	return ingest.Matrix{}, fmt.Errorf("unknown metric %d", int(m))
+	return core.Matrix{}, fmt.Errorf("unknown metric %d", int(m))
 }
 
 // normaliseRows returns a copy of x with every row scaled to unit L2 norm (norm
 // summed in float64), or a *ZeroRowError for the first row of zeros.
-func normaliseRows(x ingest.Matrix) (ingest.Matrix, error) {
-	out := ingest.Matrix{N: x.N, D: x.D, Data: make([]float32, len(x.Data))}
+func normaliseRows(x core.Matrix) (core.Matrix, error) {
+	out := core.Matrix{N: x.N, D: x.D, Data: make([]float32, len(x.Data))}
 	for i := 0; i < x.N; i++ {
 		a := x.Data[i*x.D : (i+1)*x.D]
 		var s float64
@@ -104,7 +95,7 @@ func normaliseRows(x ingest.Matrix) (ingest.Matrix, error) {
 			s += float64(v) * float64(v)
 		}
 		if s == 0 {
-			return ingest.Matrix{}, &ZeroRowError{Row: i}
+			return core.Matrix{}, &ZeroRowError{Row: i}
 		}
 		inv := 1 / math.Sqrt(s)
 		b := out.Data[i*x.D : (i+1)*x.D]
@@ -133,4 +124,29 @@ func exactDist2(a, b []float32) float32 {
 		s0 += d * d
 	}
 	return float32(s0 + s1)
+}
+
+// dist2 returns the squared Euclidean distance between a and b, which must
+// have the same length. It is written with four accumulators in a fixed order
+// so that dist2(a, b) and dist2(b, a) are the same bits on every call.
+func dist2(a, b []float32) float32 {
+	var s0, s1, s2, s3 float32
+	n := len(a)
+	b = b[:n]
+	i := 0
+	for ; i+4 <= n; i += 4 {
+		d0 := a[i] - b[i]
+		d1 := a[i+1] - b[i+1]
+		d2 := a[i+2] - b[i+2]
+		d3 := a[i+3] - b[i+3]
+		s0 += d0 * d0
+		s1 += d1 * d1
+		s2 += d2 * d2
+		s3 += d3 * d3
+	}
+	for ; i < n; i++ {
+		d := a[i] - b[i]
+		s0 += d * d
+	}
+	return (s0 + s1) + (s2 + s3)
 }

@@ -2,16 +2,16 @@ package knn
 
 import (
 	"fmt"
-	"math/rand/v2"
 	"slices"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
+	"nightjar/internal/par"
 )
 
 // Recall measures how many of an approximate graph's neighbours are the true
-// ones: the mean over sampled rows i of |approx(i) ∩ exact(i)| / k, where
-// exact(i) is row i's exact k nearest (ExactRows under opt.Metric, ties by
-// lower index). The rows are SampleRows(N, sample, seed); rows is how many
+// ones: recall@k, the mean over sampled rows i of |approx(i) ∩ exact(i)| / k,
+// where exact(i) is row i's exact k nearest (ExactRows under opt.Metric, ties
+// by lower index). The rows are SampleRows(N, sample, seed); rows is how many
 // were used (N when sample ≥ N). The cost is rows·N·D.
 //
 // Preconditions: g made for the rows of x (g.N == x.N, len(g.Index) == N·K,
@@ -20,7 +20,7 @@ import (
 // A tie at the k-th distance can make a correct approximate neighbour count
 // as a miss (the exact list keeps the lower index); with continuous data this
 // does not happen.
-func Recall(g *Graph, x ingest.Matrix, sample int, seed uint64, opt Options) (recall float64, rows int, err error) {
+func Recall(g *core.Graph, x core.Matrix, sample int, seed uint64, opt Options) (recall float64, rows int, err error) {
 	if g == nil || g.N != x.N || g.K < 1 || len(g.Index) != g.N*g.K {
 		return 0, 0, fmt.Errorf("recall: graph does not match the %d-row table", x.N)
 	}
@@ -28,16 +28,44 @@ func Recall(g *Graph, x ingest.Matrix, sample int, seed uint64, opt Options) (re
 		return 0, 0, fmt.Errorf("recall: sample size %d must be at least 1", sample)
 	}
 	sel := SampleRows(x.N, sample, seed)
-	idx, _, err := ExactRows(x, sel, g.K, opt)
+	idx, _, err := ExactRows(x, sel, g.K, ExactOptions{Options: opt})
 	if err != nil {
 		return 0, 0, fmt.Errorf("recall: %w", err)
 	}
 	return probeRecall(g, sel, idx), len(sel), nil
 }
 
+// sampleStream is the PCG stream of SampleRows; callers of par.Sample with
+// other purposes use other streams.
+const sampleStream = 0x9e3779b97f4a7c15
+
+// SampleRows returns min(sample, n) distinct row indices in [0, n), in
+// ascending order, drawn uniformly without replacement: par.Sample with a
+// stream of its own, so the same (n, sample, seed) always gives the same
+// rows. These are the rows Recall measures. sample ≥ n returns every row; sample ≤ 0 returns none. It panics if n < 0 or
+// n > 2³¹.
+func SampleRows(n, sample int, seed uint64) []int32 {
+	return par.Sample(n, sample, seed, sampleStream)
+}
+
+// probeSeed is mixed into RefineOptions.Seed to draw the rows on which
+// refinement estimates its recall, so that they are not the rows of a later
+// Recall check with the same seed.
+const probeSeed = 0x7e1a5b3c9d2f4e61
+
+// stopProbe returns the rows on which refinement estimates its recall,
+// SampleRows(N, size, seed^probeSeed), and their exact k nearest neighbours
+// (probe-major, k each) among the rows of x, which are already normalised
+// for the metric: Euclidean order on them is the metric's order.
+func stopProbe(x core.Matrix, k, size int, seed uint64, threads int) (probe, truth []int32, err error) {
+	probe = SampleRows(x.N, size, seed^probeSeed)
+	truth, _, err = ExactRows(x, probe, k, ExactOptions{Options: Options{Threads: threads}})
+	return probe, truth, err
+}
+
 // probeRecall returns the recall of g on the rows probe, whose exact
 // neighbour lists are truth (len(probe)·g.K entries, probe-major).
-func probeRecall(g *Graph, probe, truth []int32) float64 {
+func probeRecall(g *core.Graph, probe, truth []int32) float64 {
 	k := g.K
 	var hits int64
 	a := make([]int32, k)
@@ -69,35 +97,4 @@ func countCommon(a, b []int32) int {
 		}
 	}
 	return n
-}
-
-// SampleRows returns min(sample, n) distinct row indices in [0, n), in
-// ascending order, drawn uniformly without replacement by a PCG generator
-// seeded with seed (Floyd's algorithm, Bentley & Floyd 1987, CACM 30(9)).
-// The same (n, sample, seed) always gives the same rows. sample ≥ n returns
-// every row; sample ≤ 0 returns none.
-func SampleRows(n, sample int, seed uint64) []int32 {
-	if sample >= n {
-		out := make([]int32, n)
-		for i := range out {
-			out[i] = int32(i)
-		}
-		return out
-	}
-	if sample <= 0 {
-		return []int32{}
-	}
-	r := rand.New(rand.NewPCG(seed, 0x9e3779b97f4a7c15))
-	seen := make(map[int32]struct{}, sample)
-	out := make([]int32, 0, sample)
-	for j := n - sample; j < n; j++ {
-		t := int32(r.IntN(j + 1))
-		if _, ok := seen[t]; ok {
-			t = int32(j)
-		}
-		seen[t] = struct{}{}
-		out = append(out, t)
-	}
-	slices.Sort(out)
-	return out
 }

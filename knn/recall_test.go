@@ -5,16 +5,16 @@ import (
 	"slices"
 	"testing"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
 )
 
 // TestRecall: the exact graph has recall 1; a graph damaged in a known number
-// of positions has recall exactly (hits)/(rows·k) (definition in MATH.md,
-// "Quality scores").
+// of positions has recall exactly (hits)/(rows·k) (the definition of
+// recall@k in the package doc).
 func TestRecall(t *testing.T) {
 	x := randMatrix(600, 5, 111, 0, 1)
 	const k = 10
-	g, err := Exact(x, k, Options{})
+	g, err := Exact(x, k, ExactOptions{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -30,7 +30,7 @@ func TestRecall(t *testing.T) {
 
 	// Damage: in every fourth row replace the last 3 neighbours by the row's
 	// 3 farthest rows (certainly not among its 10 nearest).
-	bad := &Graph{N: g.N, K: k, Index: slices.Clone(g.Index), Dist2: slices.Clone(g.Dist2)}
+	bad := &core.Graph{N: g.N, K: k, Index: slices.Clone(g.Index), Dist2: slices.Clone(g.Dist2)}
 	damaged := 0
 	for i := 0; i < 600; i += 4 {
 		copy(bad.Index[i*k+7:(i+1)*k], farthest(x, i, 3))
@@ -62,7 +62,7 @@ func TestRecall(t *testing.T) {
 }
 
 // farthest returns the m rows farthest from row i, by brute force in float64.
-func farthest(x ingest.Matrix, i, m int) []int32 {
+func farthest(x core.Matrix, i, m int) []int32 {
 	rows := seq(x.N)
 	d := func(j int32) float64 {
 		var s float64

@@ -2,9 +2,9 @@ package knn
 
 import (
 	"math"
-	"sync"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
+	"nightjar/internal/par"
 )
 
 // Starting lists for NN-descent from random projection trees (Dasgupta &
@@ -29,7 +29,7 @@ type rpTree struct {
 
 // buildRPTree splits the rows of x into leaves of at most leaf rows. seed and
 // tree select the random choices.
-func buildRPTree(x ingest.Matrix, leaf int, seed, tree uint64) rpTree {
+func buildRPTree(x core.Matrix, leaf int, seed, tree uint64) rpTree {
 	n, dim := x.N, x.D
 	t := rpTree{perm: make([]int32, n), leafOf: make([]int32, n)}
 	for i := range t.perm {
@@ -66,7 +66,7 @@ func buildRPTree(x ingest.Matrix, leaf int, seed, tree uint64) rpTree {
 // leaves a side empty (all rows on one side of the hyperplane, as with
 // duplicate rows), it cuts a random shuffle of rows in two halves instead.
 // side and w are scratch space of at least len(rows) and x.D entries.
-func splitRows(x ingest.Matrix, rows []int32, side []bool, w []float32, r *rowRand) int {
+func splitRows(x core.Matrix, rows []int32, side []bool, w []float32, r *rowRand) int {
 	dim := x.D
 	m := len(rows)
 	a := int(rows[r.intn(m)])
@@ -125,28 +125,19 @@ func splitRows(x ingest.Matrix, rows []int32, side []bool, w []float32, r *rowRa
 // are gathered into a contiguous block (the pairs of a leaf then cost one
 // read of each row from memory instead of one per pair) and each row merges
 // its sorted leaf-mates into its list.
-func rpStart(g *Graph, x ingest.Matrix, trees, leaf int, seed uint64, threads int) {
+func rpStart(g *core.Graph, x core.Matrix, trees, leaf int, seed uint64, threads int) {
 	n, k, dim := g.N, g.K, x.D
 	forest := make([]rpTree, trees)
-	var wg sync.WaitGroup
-	sem := make(chan struct{}, max(1, threads))
-	for t := range forest {
-		wg.Add(1)
-		sem <- struct{}{}
-		go func() {
-			defer wg.Done()
-			forest[t] = buildRPTree(x, leaf, seed, uint64(t))
-			<-sem
-		}()
-	}
-	wg.Wait()
+	par.Blocks(trees, 1, threads, func(_, t, _, _ int) {
+		forest[t] = buildRPTree(x, leaf, seed, uint64(t))
+	})
 	inf := float32(math.Inf(1))
 	for i := range g.Index {
 		g.Index[i], g.Dist2[i] = -1, inf
 	}
 	for _, t := range forest {
 		leaves := len(t.start) - 1
-		forBlocks(leaves, 16, threads, func(lo, hi int) {
+		par.Blocks(leaves, 16, threads, func(_, _, lo, hi int) {
 			block := make([]float32, 0, leaf*dim)
 			pd := make([]float32, leaf*leaf)
 			ci := make([]int32, 0, leaf)
@@ -184,7 +175,7 @@ func rpStart(g *Graph, x ingest.Matrix, trees, leaf int, seed uint64, threads in
 		})
 	}
 	// Rows with fewer than k distinct leaf-mates in all trees: random fill.
-	forBlocks(n, descentBlock, threads, func(lo, hi int) {
+	par.Blocks(n, descentBlock, threads, func(_, _, lo, hi int) {
 		seen := make(map[int32]struct{}, k)
 		for i := lo; i < hi; i++ {
 			row := g.Index[i*k : (i+1)*k]
@@ -223,143 +214,4 @@ func mergeTop(idx []int32, d []float32, ci []int32, cd []float32, mi []int32, md
 	}
 	copy(idx, mi)
 	copy(d, md)
-}
-
-// randomStart fills g.Index with k distinct random rows other than the row
-// itself: the starting point of Dong, Charikar & Li 2011.
-func randomStart(g *Graph, seed uint64, threads int) {
-	n, k := g.N, g.K
-	forBlocks(n, descentBlock, threads, func(lo, hi int) {
-		seen := make(map[int32]struct{}, k)
-		for i := lo; i < hi; i++ {
-			fillRandom(g.Index[i*k:(i+1)*k], 0, i, n, seed, seen)
-		}
-	})
-}
-
-// fillRandom completes row (the list of row i, whose first have entries are
-// set and distinct) with distinct random rows other than i and those already
-// there. seen is scratch space.
-func fillRandom(row []int32, have, i, n int, seed uint64, seen map[int32]struct{}) {
-	k := len(row)
-	r := newRowRand(seed, 1<<41, uint64(i))
-	if 2*k >= n { // dense: a partial shuffle of the rows left
-		clear(seen)
-		for _, v := range row[:have] {
-			seen[v] = struct{}{}
-		}
-		rest := make([]int32, 0, n-1)
-		for j := 0; j < n; j++ {
-			if _, ok := seen[int32(j)]; !ok && j != i {
-				rest = append(rest, int32(j))
-			}
-		}
-		partialShuffle(rest, k-have, &r)
-		copy(row[have:], rest[:k-have])
-		return
-	}
-	clear(seen)
-	for _, v := range row[:have] {
-		seen[v] = struct{}{}
-	}
-	for j := have; j < k; {
-		v := int32(r.intn(n))
-		if int(v) == i {
-			continue
-		}
-		if _, ok := seen[v]; ok {
-			continue
-		}
-		seen[v] = struct{}{}
-		row[j] = v
-		j++
-	}
-}
-
-// Locality. NN-descent reads the rows and lists of a row's neighbours, which
-// in input order lie anywhere in memory: at 1,000,000 rows nearly every such
-// read misses the caches. Descent therefore renumbers the rows in the leaf
-// order of one more tree, so that near rows get near numbers, works on the
-// renumbered copy, and maps the graph back (the same idea as the
-// breadth-first renumbering of the optimiser, gradient/order.go).
-
-// permuteRows returns the rows of x in the given order (a permutation of
-// 0 … N−1): row t of the result is row order[t] of x.
-func permuteRows(x ingest.Matrix, order []int32, threads int) ingest.Matrix {
-	out := ingest.Matrix{N: x.N, D: x.D, Data: make([]float32, len(x.Data))}
-	d := x.D
-	forBlocks(x.N, 4096, threads, func(lo, hi int) {
-		for t := lo; t < hi; t++ {
-			i := int(order[t])
-			copy(out.Data[t*d:(t+1)*d], x.Data[i*d:(i+1)*d])
-		}
-	})
-	return out
-}
-
-// unpermuteGraph turns g, a graph of the rows of permuteRows(x, order), into
-// the graph of x in place: neighbour numbers are mapped through order, row t
-// moves to row order[t], and rows with equal distances are sorted again by
-// (distance, index), since their ties now rank by other numbers (rows come
-// sorted by distance from refine, so the others need no sort).
-func unpermuteGraph(g *Graph, order []int32, threads int) {
-	n, k := g.N, g.K
-	forBlocks(n, descentBlock, threads, func(lo, hi int) {
-		for e := lo * k; e < hi*k; e++ {
-			g.Index[e] = order[g.Index[e]]
-		}
-	})
-	inv := inverse(order) // row t moves to order[t]: row u takes row inv[u]
-	gatherRows(g.Index, k, inv)
-	gatherRows(g.Dist2, k, inv)
-	forBlocks(n, descentBlock, threads, func(lo, hi int) {
-		var keys []uint64
-		for i := lo; i < hi; i++ {
-			d := g.Dist2[i*k : (i+1)*k]
-			for j := 1; j < k; j++ {
-				if d[j] == d[j-1] {
-					keys = sortRow(g.Index[i*k:(i+1)*k], d, keys)
-					break
-				}
-			}
-		}
-	})
-}
-
-// permuteInPlace reorders the rows of x in place so that row t becomes the
-// former row order[t], the result permuteRows returns as a copy.
-func permuteInPlace(x ingest.Matrix, order []int32) { gatherRows(x.Data, x.D, order) }
-
-// gatherRows reorders the rows of width w of data in place so that row t
-// becomes the former row order[t] (order a permutation of the rows), by
-// following the permutation's cycles with one spare row.
-func gatherRows[T any](data []T, w int, order []int32) {
-	done := make([]bool, len(order))
-	tmp := make([]T, w)
-	for s := range done {
-		if done[s] {
-			continue
-		}
-		copy(tmp, data[s*w:(s+1)*w])
-		t := s
-		for {
-			done[t] = true
-			src := int(order[t])
-			if src == s {
-				copy(data[t*w:(t+1)*w], tmp)
-				break
-			}
-			copy(data[t*w:(t+1)*w], data[src*w:(src+1)*w])
-			t = src
-		}
-	}
-}
-
-// inverse returns the inverse of the permutation order.
-func inverse(order []int32) []int32 {
-	inv := make([]int32, len(order))
-	for t, i := range order {
-		inv[i] = int32(t)
-	}
-	return inv
 }

@@ -7,13 +7,14 @@ import (
 	"sort"
 	"testing"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
+	"nightjar/internal/par"
 )
 
 // rpConstant returns n copies of one row of d values: every split of such a
 // table leaves one side empty.
-func rpConstant(n, d int) ingest.Matrix {
-	x := ingest.Matrix{N: n, D: d, Data: make([]float32, n*d)}
+func rpConstant(n, d int) core.Matrix {
+	x := core.Matrix{N: n, D: d, Data: make([]float32, n*d)}
 	for i := range x.Data {
 		x.Data[i] = 1.5
 	}
@@ -33,7 +34,7 @@ func TestRPTreeLeaves(t *testing.T) {
 	}
 	cases := []struct {
 		name string
-		x    ingest.Matrix
+		x    core.Matrix
 		leaf int
 	}{
 		{"clustered", axClustered(3000, 12, 8, 3), 40},
@@ -87,8 +88,8 @@ func TestRPStartIsLeafTopK(t *testing.T) {
 	dup := x
 	dup.Data = append(slices.Clone(x.Data), x.Data[:100*x.D]...) // 100 duplicate rows
 	dup.N += 100
-	for _, m := range []ingest.Matrix{x, dup} {
-		g := &Graph{N: m.N, K: k, Index: make([]int32, m.N*k), Dist2: make([]float32, m.N*k)}
+	for _, m := range []core.Matrix{x, dup} {
+		g := &core.Graph{N: m.N, K: k, Index: make([]int32, m.N*k), Dist2: make([]float32, m.N*k)}
 		rpStart(g, m, trees, leaf, 7, 3)
 		forest := make([]rpTree, trees)
 		for tr := range forest {
@@ -284,8 +285,8 @@ func (r rowRef) Swap(a, b int) {
 func TestDescentTreeStart(t *testing.T) {
 	const k = 15
 	x := axClustered(4000, 16, 10, 12)
-	recall := func(trees, passes int) (float64, ApproxStats) {
-		opt := DefaultApprox(x.N, k)
+	recall := func(trees, passes int) (float64, Stats) {
+		opt := DefaultDescent(k)
 		opt.Trees, opt.MaxPasses = trees, passes
 		g, st, err := Descent(x, k, opt)
 		if err != nil {
@@ -323,7 +324,7 @@ func TestStopRecall(t *testing.T) {
 	const k = 15
 	x := axClustered(4000, 16, 10, 12)
 	for _, goal := range []float64{0.9, 0.995} {
-		opt := DefaultApprox(x.N, k)
+		opt := DefaultDescent(k)
 		opt.Trees, opt.MaxPasses, opt.Delta, opt.StopRecall, opt.StopRows = -1, 8, 1e-12, goal, 200
 		g, st, err := Descent(x, k, opt)
 		if err != nil {
@@ -363,12 +364,12 @@ func TestPermuteInPlace(t *testing.T) {
 	}
 	r.Shuffle(len(order), func(a, b int) { order[a], order[b] = order[b], order[a] })
 	want := permuteRows(x, order, 2)
-	y := ingest.Matrix{N: x.N, D: x.D, Data: slices.Clone(x.Data)}
+	y := core.Matrix{N: x.N, D: x.D, Data: slices.Clone(x.Data)}
 	permuteInPlace(y, order)
 	if !slices.Equal(y.Data, want.Data) {
 		t.Fatal("in place differs from the copy")
 	}
-	permuteInPlace(y, inverse(order))
+	permuteInPlace(y, par.Inverse(order))
 	if !slices.Equal(y.Data, x.Data) {
 		t.Fatal("the inverse does not restore the rows")
 	}
@@ -381,7 +382,7 @@ func TestDescentInPlace(t *testing.T) {
 	x := axClustered(3000, 8, 6, 14)
 	orig := slices.Clone(x.Data)
 	for _, m := range []Metric{Euclidean, Cosine} {
-		opt := DefaultApprox(x.N, k)
+		opt := DefaultDescent(k)
 		opt.Metric = m
 		ref, _, err := Descent(x, k, opt)
 		if err != nil {
@@ -406,11 +407,11 @@ func TestDescentInPlace(t *testing.T) {
 // original row numbers (axCheckGraph checks the order (distance, index)).
 func TestDescentTiesSorted(t *testing.T) {
 	base := axClustered(80, 6, 4, 3)
-	x := ingest.Matrix{N: base.N * 12, D: base.D}
+	x := core.Matrix{N: base.N * 12, D: base.D}
 	for c := 0; c < 12; c++ {
 		x.Data = append(x.Data, base.Data...)
 	}
-	g, _, err := Descent(x, 15, DefaultApprox(x.N, 15))
+	g, _, err := Descent(x, 15, DefaultDescent(15))
 	if err != nil {
 		t.Fatal(err)
 	}
