@@ -10,17 +10,6 @@ import (
 	"syscall"
 )
 
-// Hooks that tests replace to simulate failures the test machine cannot
-// produce (tests run as root, where a read-only directory still accepts
-// writes, and a full disk cannot be arranged without mounting one).
-var (
-	createTemp = os.CreateTemp
-	wrapWriter = func(w io.Writer) io.Writer { return w }
-	syncFile   = (*os.File).Sync
-	renameFile = os.Rename
-	syncDir    = syncDirectory
-)
-
 // tempMarker appears in the names of temporary files, which are
 // "." + final name + tempMarker + random digits.
 const tempMarker = ".tmp-"
@@ -33,7 +22,19 @@ const tempMarker = ".tmp-"
 // was. A full disk gives an error saying so (errors.Is(err, syscall.ENOSPC)
 // holds). The new file gets mode 0644 (the umask is not applied).
 // write must not keep the writer after it returns.
-func AtomicWrite(path string, write func(io.Writer) error) (err error) {
+func AtomicWrite(path string, write func(io.Writer) error) error {
+	return AtomicWriteFS(OSFS{}, path, write)
+}
+
+// AtomicWriteFS is AtomicWrite through the file system fsys (nil means
+// OSFS, which AtomicWrite uses). Each step (create, every write, chmod, sync,
+// close, rename, directory sync; the removal of the temporary file after an
+// error) is one call of fsys or of the File it created, so a test's fsys can
+// make any step fail, or stop the process there as a kill would.
+func AtomicWriteFS(fsys FS, path string, write func(io.Writer) error) (err error) {
+	if fsys == nil {
+		fsys = OSFS{}
+	}
 	dir, base := filepath.Split(path)
 	if dir == "" {
 		dir = "."
@@ -41,7 +42,7 @@ func AtomicWrite(path string, write func(io.Writer) error) (err error) {
 	if base == "" {
 		return fmt.Errorf("writing %q: not a file name", path)
 	}
-	f, err := createTemp(dir, "."+base+tempMarker+"*")
+	f, err := fsys.CreateTemp(dir, "."+base+tempMarker+"*")
 	if err != nil {
 		return writeError(path, err)
 	}
@@ -49,26 +50,26 @@ func AtomicWrite(path string, write func(io.Writer) error) (err error) {
 	defer func() {
 		if err != nil {
 			f.Close() // may already be closed; the error is irrelevant then
-			os.Remove(tmp)
+			fsys.Remove(tmp)
 		}
 	}()
-	if err = write(wrapWriter(f)); err != nil {
+	if err = write(f); err != nil {
 		return writeError(path, err)
 	}
 	if err = f.Chmod(0o644); err != nil {
 		return writeError(path, err)
 	}
-	if err = syncFile(f); err != nil {
+	if err = f.Sync(); err != nil {
 		return writeError(path, fmt.Errorf("syncing: %w", err))
 	}
 	if err = f.Close(); err != nil {
 		return writeError(path, err)
 	}
-	if err = renameFile(tmp, path); err != nil {
+	if err = fsys.Rename(tmp, path); err != nil {
 		return writeError(path, err)
 	}
 	// The new file is in place; from here on there is no temporary to remove.
-	if derr := syncDir(dir); derr != nil {
+	if derr := fsys.SyncDir(dir); derr != nil {
 		return fmt.Errorf("writing %s: file renamed but directory sync failed: %w", path, derr)
 	}
 	return nil
@@ -84,21 +85,6 @@ func writeError(path string, err error) error {
 	return fmt.Errorf("writing %s: %w", path, err)
 }
 
-// syncDirectory makes a rename in dir durable. File systems that cannot sync
-// a directory (EINVAL, ENOTSUP) are tolerated: there is nothing more to do.
-func syncDirectory(dir string) error {
-	d, err := os.Open(dir)
-	if err != nil {
-		return err
-	}
-	err = d.Sync()
-	cerr := d.Close()
-	if err != nil && !errors.Is(err, syscall.EINVAL) && !errors.Is(err, syscall.ENOTSUP) {
-		return err
-	}
-	return cerr
-}
-
 // isTempName reports whether a directory entry is a temporary file left by
 // AtomicWrite (for instance after a kill).
 func isTempName(name string) bool {
@@ -109,7 +95,12 @@ func isTempName(name string) bool {
 // Encode for the rules on kind and section names, AtomicWrite for the
 // guarantees).
 func WriteFile(path, kind string, sections []Section) error {
-	return AtomicWrite(path, func(w io.Writer) error {
+	return writeFile(OSFS{}, path, kind, sections)
+}
+
+// writeFile is WriteFile through fsys.
+func writeFile(fsys FS, path, kind string, sections []Section) error {
+	return AtomicWriteFS(fsys, path, func(w io.Writer) error {
 		return bufferedEncode(w, kind, sections)
 	})
 }

@@ -3,121 +3,79 @@ package checkpoint
 import (
 	"encoding/binary"
 	"fmt"
-	"math"
 	"unsafe"
 )
 
-// The helpers below turn typed slices into little-endian section bytes and
-// back. Encoders return a new slice of len(v)·size bytes; decoders return a
-// new slice of len(b)/size values and fail when len(b) is not a multiple of
-// the element size. Floats keep their exact bits (NaN payloads included),
-// which a bit-identical resume needs.
-
-func lengthError(n, size int, what string) error {
-	return fmt.Errorf("%d bytes cannot hold %s values: not a multiple of %d", n, what, size)
+// Element is the set of value types a section can hold. Every value is
+// stored little-endian: integers in two's complement, floats as their IEEE
+// 754 bits, kept exactly (signed zeros, subnormals, NaN payloads), which a
+// bit-identical resume needs.
+//
+// Three helpers move values in and out of sections:
+//
+//   - EncodeValues copies values into new section bytes. Use it for small
+//     sections and for values that may change before the section is written.
+//   - View gives a large slice's own memory as section bytes, without a copy
+//     on little-endian hosts. Use it for big arrays (embedding, graph,
+//     affinities) that stay unchanged until the file is written.
+//   - DecodeValues (and SectionValues, which also looks the section up)
+//     copies section bytes into a new slice of values. Decoded sections alias
+//     the file's buffer, which need not be aligned for T, so decoding always
+//     copies.
+type Element interface {
+	int32 | int64 | uint64 | float32 | float64
 }
 
-// Float64Bytes returns the IEEE 754 bits of v, 8 bytes per value, little-endian.
-func Float64Bytes(v []float64) []byte {
-	b := make([]byte, 8*len(v))
-	for i, x := range v {
-		binary.LittleEndian.PutUint64(b[8*i:], math.Float64bits(x))
+// size returns the number of bytes of one T.
+func size[T Element]() int {
+	var zero T
+	return int(unsafe.Sizeof(zero))
+}
+
+// EncodeValues returns the little-endian bytes of v (see Element) in a new
+// slice of len(v)·size bytes, size being 4 for int32 and float32 and 8 for
+// the others.
+func EncodeValues[T Element](v []T) []byte {
+	b := make([]byte, len(v)*size[T]())
+	if len(v) == 0 {
+		return b
+	}
+	if _, err := binary.Encode(b, binary.LittleEndian, v); err != nil {
+		// b has exactly the size Encode needs for a slice of fixed-size values.
+		panic("checkpoint: EncodeValues: " + err.Error())
 	}
 	return b
 }
 
-// BytesFloat64 is the inverse of Float64Bytes. It fails when len(b)%8 != 0.
-func BytesFloat64(b []byte) ([]float64, error) {
-	if len(b)%8 != 0 {
-		return nil, lengthError(len(b), 8, "float64")
+// DecodeValues is the inverse of EncodeValues: it returns the len(b)/size
+// values held in b in a new slice. It fails when len(b) is not a multiple of
+// the size of T.
+func DecodeValues[T Element](b []byte) ([]T, error) {
+	n := size[T]()
+	if len(b)%n != 0 {
+		var zero T
+		return nil, fmt.Errorf("%d bytes cannot hold %T values: not a multiple of %d", len(b), zero, n)
 	}
-	v := make([]float64, len(b)/8)
-	for i := range v {
-		v[i] = math.Float64frombits(binary.LittleEndian.Uint64(b[8*i:]))
+	v := make([]T, len(b)/n)
+	if len(v) == 0 {
+		return v, nil
+	}
+	if _, err := binary.Decode(b, binary.LittleEndian, v); err != nil {
+		return nil, fmt.Errorf("decoding %d values: %w", len(v), err)
 	}
 	return v, nil
 }
 
-// Float32Bytes returns the IEEE 754 bits of v, 4 bytes per value, little-endian.
-func Float32Bytes(v []float32) []byte {
-	b := make([]byte, 4*len(v))
-	for i, x := range v {
-		binary.LittleEndian.PutUint32(b[4*i:], math.Float32bits(x))
+// SectionValues looks up the section called name (see Lookup) and decodes
+// its bytes with DecodeValues. Errors name the section.
+func SectionValues[T Element](sections []Section, name string) ([]T, error) {
+	b, err := Lookup(sections, name)
+	if err != nil {
+		return nil, err
 	}
-	return b
-}
-
-// BytesFloat32 is the inverse of Float32Bytes. It fails when len(b)%4 != 0.
-func BytesFloat32(b []byte) ([]float32, error) {
-	if len(b)%4 != 0 {
-		return nil, lengthError(len(b), 4, "float32")
-	}
-	v := make([]float32, len(b)/4)
-	for i := range v {
-		v[i] = math.Float32frombits(binary.LittleEndian.Uint32(b[4*i:]))
-	}
-	return v, nil
-}
-
-// Int32Bytes returns v in two's complement, 4 bytes per value, little-endian.
-func Int32Bytes(v []int32) []byte {
-	b := make([]byte, 4*len(v))
-	for i, x := range v {
-		binary.LittleEndian.PutUint32(b[4*i:], uint32(x))
-	}
-	return b
-}
-
-// BytesInt32 is the inverse of Int32Bytes. It fails when len(b)%4 != 0.
-func BytesInt32(b []byte) ([]int32, error) {
-	if len(b)%4 != 0 {
-		return nil, lengthError(len(b), 4, "int32")
-	}
-	v := make([]int32, len(b)/4)
-	for i := range v {
-		v[i] = int32(binary.LittleEndian.Uint32(b[4*i:]))
-	}
-	return v, nil
-}
-
-// Int64Bytes returns v in two's complement, 8 bytes per value, little-endian.
-func Int64Bytes(v []int64) []byte {
-	b := make([]byte, 8*len(v))
-	for i, x := range v {
-		binary.LittleEndian.PutUint64(b[8*i:], uint64(x))
-	}
-	return b
-}
-
-// BytesInt64 is the inverse of Int64Bytes. It fails when len(b)%8 != 0.
-func BytesInt64(b []byte) ([]int64, error) {
-	if len(b)%8 != 0 {
-		return nil, lengthError(len(b), 8, "int64")
-	}
-	v := make([]int64, len(b)/8)
-	for i := range v {
-		v[i] = int64(binary.LittleEndian.Uint64(b[8*i:]))
-	}
-	return v, nil
-}
-
-// Uint64Bytes returns v, 8 bytes per value, little-endian.
-func Uint64Bytes(v []uint64) []byte {
-	b := make([]byte, 8*len(v))
-	for i, x := range v {
-		binary.LittleEndian.PutUint64(b[8*i:], x)
-	}
-	return b
-}
-
-// BytesUint64 is the inverse of Uint64Bytes. It fails when len(b)%8 != 0.
-func BytesUint64(b []byte) ([]uint64, error) {
-	if len(b)%8 != 0 {
-		return nil, lengthError(len(b), 8, "uint64")
-	}
-	v := make([]uint64, len(b)/8)
-	for i := range v {
-		v[i] = binary.LittleEndian.Uint64(b[8*i:])
+	v, err := DecodeValues[T](b)
+	if err != nil {
+		return nil, fmt.Errorf("section %q: %w", name, err)
 	}
 	return v, nil
 }
@@ -126,28 +84,17 @@ func BytesUint64(b []byte) ([]uint64, error) {
 // least-significant byte first, as the section format does.
 var hostLittleEndian = binary.NativeEndian.Uint16([]byte{1, 0}) == 1
 
-// View returns the little-endian section bytes of v for writing, like the
-// XBytes encoders above, but without a copy on little-endian hosts (amd64,
+// View returns the little-endian section bytes of v for writing, the same
+// bytes as EncodeValues(v), but without a copy on little-endian hosts (amd64,
 // arm64 and most others): the bytes are then v's own memory, so v must not
 // change until they are written. A million-row P is about 1 GB; a copy
 // would double it while it is saved. On big-endian hosts View copies.
-func View[T int32 | int64 | uint64 | float32 | float64](v []T) []byte {
+func View[T Element](v []T) []byte {
 	if len(v) == 0 {
 		return []byte{}
 	}
 	if hostLittleEndian {
-		return unsafe.Slice((*byte)(unsafe.Pointer(unsafe.SliceData(v))), len(v)*int(unsafe.Sizeof(v[0])))
+		return unsafe.Slice((*byte)(unsafe.Pointer(unsafe.SliceData(v))), len(v)*size[T]())
 	}
-	switch w := any(v).(type) {
-	case []int32:
-		return Int32Bytes(w)
-	case []int64:
-		return Int64Bytes(w)
-	case []uint64:
-		return Uint64Bytes(w)
-	case []float32:
-		return Float32Bytes(w)
-	default:
-		return Float64Bytes(any(v).([]float64))
-	}
+	return EncodeValues(v)
 }

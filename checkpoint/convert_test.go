@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"math"
 	"slices"
+	"strings"
 	"testing"
 )
 
@@ -16,13 +17,13 @@ func TestConvertKnownBytes(t *testing.T) {
 		got  []byte
 		want []byte
 	}{
-		{"float64 1", Float64Bytes([]float64{1}), []byte{0, 0, 0, 0, 0, 0, 0xF0, 0x3F}},
-		{"float64 -2", Float64Bytes([]float64{-2}), []byte{0, 0, 0, 0, 0, 0, 0, 0xC0}},
-		{"float32 1", Float32Bytes([]float32{1}), []byte{0, 0, 0x80, 0x3F}},
-		{"int32 -2", Int32Bytes([]int32{-2}), []byte{0xFE, 0xFF, 0xFF, 0xFF}},
-		{"int64 258", Int64Bytes([]int64{258}), []byte{2, 1, 0, 0, 0, 0, 0, 0}},
-		{"uint64 max", Uint64Bytes([]uint64{math.MaxUint64}), bytes.Repeat([]byte{0xFF}, 8)},
-		{"empty", Float64Bytes(nil), []byte{}},
+		{"float64 1", EncodeValues([]float64{1}), []byte{0, 0, 0, 0, 0, 0, 0xF0, 0x3F}},
+		{"float64 -2", EncodeValues([]float64{-2}), []byte{0, 0, 0, 0, 0, 0, 0, 0xC0}},
+		{"float32 1", EncodeValues([]float32{1}), []byte{0, 0, 0x80, 0x3F}},
+		{"int32 -2", EncodeValues([]int32{-2}), []byte{0xFE, 0xFF, 0xFF, 0xFF}},
+		{"int64 258", EncodeValues([]int64{258}), []byte{2, 1, 0, 0, 0, 0, 0, 0}},
+		{"uint64 max", EncodeValues([]uint64{math.MaxUint64}), bytes.Repeat([]byte{0xFF}, 8)},
+		{"empty", EncodeValues[float64](nil), []byte{}},
 	}
 	for _, tc := range tests {
 		if !bytes.Equal(tc.got, tc.want) {
@@ -37,7 +38,7 @@ func TestConvertKnownBytes(t *testing.T) {
 func TestConvertRoundTrip(t *testing.T) {
 	f64 := []float64{0, math.Copysign(0, -1), math.SmallestNonzeroFloat64, math.MaxFloat64,
 		math.Inf(-1), math.Float64frombits(0x7FF8000000000123), 1.0 / 3}
-	g64, err := BytesFloat64(Float64Bytes(f64))
+	g64, err := DecodeValues[float64](EncodeValues(f64))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -47,7 +48,7 @@ func TestConvertRoundTrip(t *testing.T) {
 		}
 	}
 	f32 := []float32{0, float32(math.Copysign(0, -1)), math.SmallestNonzeroFloat32, math.Float32frombits(0x7FC00123), 1.0 / 3}
-	g32, err := BytesFloat32(Float32Bytes(f32))
+	g32, err := DecodeValues[float32](EncodeValues(f32))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -57,15 +58,15 @@ func TestConvertRoundTrip(t *testing.T) {
 		}
 	}
 	i32 := []int32{math.MinInt32, -1, 0, 1, math.MaxInt32}
-	if g, err := BytesInt32(Int32Bytes(i32)); err != nil || !slices.Equal(g, i32) {
+	if g, err := DecodeValues[int32](EncodeValues(i32)); err != nil || !slices.Equal(g, i32) {
 		t.Errorf("int32: %v %v", g, err)
 	}
 	i64 := []int64{math.MinInt64, -1, 0, 1, math.MaxInt64}
-	if g, err := BytesInt64(Int64Bytes(i64)); err != nil || !slices.Equal(g, i64) {
+	if g, err := DecodeValues[int64](EncodeValues(i64)); err != nil || !slices.Equal(g, i64) {
 		t.Errorf("int64: %v %v", g, err)
 	}
 	u64 := []uint64{0, 1, math.MaxUint64}
-	if g, err := BytesUint64(Uint64Bytes(u64)); err != nil || !slices.Equal(g, u64) {
+	if g, err := DecodeValues[uint64](EncodeValues(u64)); err != nil || !slices.Equal(g, u64) {
 		t.Errorf("uint64: %v %v", g, err)
 	}
 }
@@ -76,11 +77,11 @@ func TestConvertBadLength(t *testing.T) {
 		fn   func([]byte) error
 		bad  []int
 	}{
-		{"float64", func(b []byte) error { _, err := BytesFloat64(b); return err }, []int{1, 7, 9, 15}},
-		{"float32", func(b []byte) error { _, err := BytesFloat32(b); return err }, []int{1, 3, 5}},
-		{"int32", func(b []byte) error { _, err := BytesInt32(b); return err }, []int{2, 6}},
-		{"int64", func(b []byte) error { _, err := BytesInt64(b); return err }, []int{4, 12}},
-		{"uint64", func(b []byte) error { _, err := BytesUint64(b); return err }, []int{3, 17}},
+		{"float64", func(b []byte) error { _, err := DecodeValues[float64](b); return err }, []int{1, 7, 9, 15}},
+		{"float32", func(b []byte) error { _, err := DecodeValues[float32](b); return err }, []int{1, 3, 5}},
+		{"int32", func(b []byte) error { _, err := DecodeValues[int32](b); return err }, []int{2, 6}},
+		{"int64", func(b []byte) error { _, err := DecodeValues[int64](b); return err }, []int{4, 12}},
+		{"uint64", func(b []byte) error { _, err := DecodeValues[uint64](b); return err }, []int{3, 17}},
 	}
 	for _, tc := range tests {
 		for _, n := range tc.bad {
@@ -102,15 +103,36 @@ func TestView(t *testing.T) {
 		name      string
 		view, enc []byte
 	}{
-		{"int32", View([]int32{1, -2, 1 << 30}), Int32Bytes([]int32{1, -2, 1 << 30})},
-		{"int64", View([]int64{-1, 1 << 40}), Int64Bytes([]int64{-1, 1 << 40})},
-		{"uint64", View([]uint64{7, 1 << 63}), Uint64Bytes([]uint64{7, 1 << 63})},
-		{"float32", View([]float32{1.5, float32(math.Inf(-1))}), Float32Bytes([]float32{1.5, float32(math.Inf(-1))})},
-		{"float64", View([]float64{math.Pi, -0.0}), Float64Bytes([]float64{math.Pi, -0.0})},
-		{"empty", View([]float64{}), Float64Bytes(nil)},
+		{"int32", View([]int32{1, -2, 1 << 30}), EncodeValues([]int32{1, -2, 1 << 30})},
+		{"int64", View([]int64{-1, 1 << 40}), EncodeValues([]int64{-1, 1 << 40})},
+		{"uint64", View([]uint64{7, 1 << 63}), EncodeValues([]uint64{7, 1 << 63})},
+		{"float32", View([]float32{1.5, float32(math.Inf(-1))}), EncodeValues([]float32{1.5, float32(math.Inf(-1))})},
+		{"float64", View([]float64{math.Pi, -0.0}), EncodeValues([]float64{math.Pi, -0.0})},
+		{"empty", View([]float64{}), EncodeValues[float64](nil)},
 	} {
 		if !bytes.Equal(tc.view, tc.enc) {
 			t.Errorf("%s: View % x, encoder % x", tc.name, tc.view, tc.enc)
+		}
+	}
+}
+
+// TestSectionValues checks the lookup-and-decode helper: the values of a
+// present section, and errors naming the section when it is missing or its
+// length does not fit the type.
+func TestSectionValues(t *testing.T) {
+	secs := []Section{
+		{Name: "y", Data: EncodeValues([]float64{0.5, -1})},
+		{Name: "odd", Data: []byte{1, 2, 3}},
+	}
+	if v, err := SectionValues[float64](secs, "y"); err != nil || !slices.Equal(v, []float64{0.5, -1}) {
+		t.Errorf("y: %v, %v", v, err)
+	}
+	for _, tc := range []struct{ name, want string }{
+		{"missing", `section "missing" missing`},
+		{"odd", `section "odd": 3 bytes cannot hold int32 values`},
+	} {
+		if _, err := SectionValues[int32](secs, tc.name); err == nil || !strings.Contains(err.Error(), tc.want) {
+			t.Errorf("%s: error %v, want one saying %q", tc.name, err, tc.want)
 		}
 	}
 }

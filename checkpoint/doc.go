@@ -3,7 +3,8 @@
 // affinity matrix, and the atomic writing of every file a run produces.
 //
 // The package stores bytes, not numbers: callers turn their slices into
-// sections with the little-endian helpers (Float64Bytes, BytesFloat32, …)
+// sections with the little-endian helpers (EncodeValues and View to write,
+// DecodeValues and SectionValues to read; see Element for which to use when)
 // and decide what each section means. It never imports the numeric packages.
 //
 // # State file layout (format version 1)
@@ -46,10 +47,21 @@
 //
 // # Run directory
 //
-// A run directory (see Run) holds manifest.json, the artifacts written by
-// SaveArtifact (graph.njs, affinities.njs …), the two newest optimiser states
-// state-NNNNNNNNN.njs (nine-digit iteration number) and the final outputs the
-// caller writes with AtomicWrite. Every file is written to a temporary name in
-// the same directory, synced, renamed over the final name, and the directory is
-// synced, so a kill at any moment leaves either the old or the new file.
+// A run directory (see Run) holds
+//
+//	manifest.json          the manifest (ManifestName), replaced by SaveManifest
+//	NAME.njs               artifacts written by SaveArtifact(NAME, …); the
+//	                       nightjar command writes neighbours.njg.njs (the
+//	                       neighbour graph) and affinities.njp.njs (P)
+//	state-NNNNNNNNN.njs    the two newest optimiser states (SaveState), NNNNNNNNN
+//	                       the nine-digit iteration number
+//
+// and the final outputs the caller writes with AtomicWrite into Run.Path
+// (the nightjar command writes embedding.parquet, map.png and report.json).
+// Every file is written to a temporary name in the same directory
+// ("." + name + ".tmp-" + random digits), synced, renamed over the final
+// name, and the directory is synced, so a kill at any moment leaves either
+// the old or the new file; Open removes temporary files a kill left behind.
+// A Run writes its files through Run.FS (OSFS by default), which tests
+// replace to make a step fail or stop.
 package checkpoint

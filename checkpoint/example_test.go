@@ -20,8 +20,8 @@ func ExampleWriteFile() {
 
 	// A 2-point neighbour graph with k = 1 (demo data).
 	err = checkpoint.WriteFile(path, "graph", []checkpoint.Section{
-		{Name: "indices", Data: checkpoint.Int32Bytes([]int32{1, 0})},
-		{Name: "distances", Data: checkpoint.Float32Bytes([]float32{0.25, 0.25})},
+		{Name: "indices", Data: checkpoint.EncodeValues([]int32{1, 0})},
+		{Name: "distances", Data: checkpoint.EncodeValues([]float32{0.25, 0.25})},
 	})
 	if err != nil {
 		log.Fatal(err)
@@ -31,11 +31,7 @@ func ExampleWriteFile() {
 	if err != nil {
 		log.Fatal(err)
 	}
-	idx, err := checkpoint.Lookup(sections, "indices")
-	if err != nil {
-		log.Fatal(err)
-	}
-	neighbours, err := checkpoint.BytesInt32(idx)
+	neighbours, err := checkpoint.SectionValues[int32](sections, "indices")
 	if err != nil {
 		log.Fatal(err)
 	}
@@ -70,7 +66,7 @@ func ExampleRun() {
 	// The optimiser saves its state every 250 iterations (demo values).
 	for it := 250; it <= 750; it += 250 {
 		state := []checkpoint.Section{
-			{Name: "embedding", Data: checkpoint.Float64Bytes([]float64{float64(it), 0})},
+			{Name: "embedding", Data: checkpoint.EncodeValues([]float64{float64(it), 0})},
 		}
 		if err := run.SaveState(it, state); err != nil {
 			log.Fatal(err)
@@ -89,8 +85,7 @@ func ExampleRun() {
 	for _, w := range warnings {
 		fmt.Println("warning:", w)
 	}
-	emb, _ := checkpoint.Lookup(sections, "embedding")
-	y, _ := checkpoint.BytesFloat64(emb)
+	y, _ := checkpoint.SectionValues[float64](sections, "embedding")
 	fmt.Println("resume at iteration", it, "of", again.Manifest().Iterations, "embedding", y)
 
 	files, _ := filepath.Glob(filepath.Join(dir, "*"))

@@ -331,33 +331,44 @@ func Decode(data []byte, kind string) ([]Section, error) {
 	if gotKind != kind {
 		return nil, &KindError{Got: gotKind, Want: kind}
 	}
+	if err := placeSections(data, sections, entries, uint64(r.pos)); err != nil {
+		return nil, err
+	}
+	return sections, nil
+}
+
+// placeSections checks the section names and the table entries against
+// data, whose header ends at start, and points each section at its bytes:
+// sections must follow the header and each other without gaps, end exactly
+// at the end of data, and match their checksums.
+func placeSections(data []byte, sections []Section, entries []entry, start uint64) error {
 	seen := make(map[string]bool, len(sections))
-	next := uint64(r.pos)
+	next := start
 	for i, s := range sections {
 		if err := validName(s.Name); err != nil {
-			return nil, &CorruptError{Reason: "bad section table: " + err.Error()}
+			return &CorruptError{Reason: "bad section table: " + err.Error()}
 		}
 		if seen[s.Name] {
-			return nil, &CorruptError{Section: s.Name, Reason: "appears twice in the section table"}
+			return &CorruptError{Section: s.Name, Reason: "appears twice in the section table"}
 		}
 		seen[s.Name] = true
 		e := entries[i]
 		if e.off != next {
-			return nil, &CorruptError{Section: s.Name, Reason: fmt.Sprintf("offset %d, expected %d", e.off, next)}
+			return &CorruptError{Section: s.Name, Reason: fmt.Sprintf("offset %d, expected %d", e.off, next)}
 		}
 		if e.length > uint64(len(data))-e.off {
-			return nil, &CorruptError{Section: s.Name, Reason: fmt.Sprintf("truncated (%d bytes at offset %d, file has %d)", e.length, e.off, len(data))}
+			return &CorruptError{Section: s.Name, Reason: fmt.Sprintf("truncated (%d bytes at offset %d, file has %d)", e.length, e.off, len(data))}
 		}
 		next = e.off + e.length
 		sections[i].Data = data[e.off:next:next]
 		if got := checksum(sections[i].Data); got != e.crc {
-			return nil, &CorruptError{Section: s.Name, Reason: "checksum mismatch"}
+			return &CorruptError{Section: s.Name, Reason: "checksum mismatch"}
 		}
 	}
 	if next != uint64(len(data)) {
-		return nil, &CorruptError{Reason: fmt.Sprintf("%d unexpected bytes after the last section", uint64(len(data))-next)}
+		return &CorruptError{Reason: fmt.Sprintf("%d unexpected bytes after the last section", uint64(len(data))-next)}
 	}
-	return sections, nil
+	return nil
 }
 
 // matchesMagicPrefix reports whether data, shorter than the magic number, is

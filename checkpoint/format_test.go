@@ -76,10 +76,10 @@ func TestLayoutByHand(t *testing.T) {
 // the middle to exercise zero-length bounds.
 func sampleSections() []Section {
 	return []Section{
-		{Name: "embedding", Data: Float64Bytes([]float64{1.5, -2.25, 3e-7, 4, 5, 6})},
+		{Name: "embedding", Data: EncodeValues([]float64{1.5, -2.25, 3e-7, 4, 5, 6})},
 		{Name: "empty", Data: nil},
-		{Name: "gains", Data: Float64Bytes([]float64{1, 1, 0.8, 1.2, 0.01, 1})},
-		{Name: "rng", Data: Uint64Bytes([]uint64{0x0123456789ABCDEF, 42})},
+		{Name: "gains", Data: EncodeValues([]float64{1, 1, 0.8, 1.2, 0.01, 1})},
+		{Name: "rng", Data: EncodeValues([]uint64{0x0123456789ABCDEF, 42})},
 	}
 }
 
@@ -368,7 +368,7 @@ func TestDecodeAllocationBound(t *testing.T) {
 
 func BenchmarkDecode(b *testing.B) {
 	var buf bytes.Buffer
-	big := Float64Bytes(make([]float64, 1<<20))
+	big := EncodeValues(make([]float64, 1<<20))
 	if err := Encode(&buf, "state", []Section{{Name: "embedding", Data: big}, {Name: "gains", Data: big}}); err != nil {
 		b.Fatal(err)
 	}
@@ -385,7 +385,7 @@ func BenchmarkDecode(b *testing.B) {
 // BenchmarkWriteFile measures an atomic, synced write of a 2-D state for
 // 100,000 points (embedding, update, gains: 4.8 MB).
 func BenchmarkWriteFile(b *testing.B) {
-	v := Float64Bytes(make([]float64, 2*100000))
+	v := EncodeValues(make([]float64, 2*100000))
 	secs := []Section{{Name: "embedding", Data: v}, {Name: "update", Data: v}, {Name: "gains", Data: v}}
 	path := filepath.Join(b.TempDir(), "state-000000001.njs")
 	b.SetBytes(int64(3 * len(v)))

@@ -31,8 +31,21 @@ var ErrNoState = errors.New("no optimiser state saved")
 // and two processes must not work in the same directory at once.
 type Run struct {
 	// Dir is the run directory, as given to Create or Open.
-	Dir      string
+	Dir string
+	// FS is the file system the run writes through (manifest, states,
+	// artifacts, and the removal of old states); nil means OSFS. Tests set it
+	// to make a write fail or stop. Reads and Open's clean-up use the
+	// operating system directly.
+	FS       FS
 	manifest *Manifest
+}
+
+// fsys returns the file system the run writes through.
+func (r *Run) fsys() FS {
+	if r.FS == nil {
+		return OSFS{}
+	}
+	return r.FS
 }
 
 // Create makes dir (and its parents) and starts a run there, writing a first
@@ -40,6 +53,12 @@ type Run struct {
 // Started/Updated set to now. It refuses a directory that already holds a
 // manifest.
 func Create(dir string) (*Run, error) {
+	return CreateFS(dir, nil)
+}
+
+// CreateFS is Create with the run writing through fsys (nil means OSFS),
+// its first manifest included; the directory itself is made with os.MkdirAll.
+func CreateFS(dir string, fsys FS) (*Run, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, fmt.Errorf("creating run directory: %w", err)
 	}
@@ -50,7 +69,7 @@ func Create(dir string) (*Run, error) {
 		return nil, fmt.Errorf("creating run directory: %w", err)
 	}
 	now := time.Now().UTC()
-	r := &Run{Dir: dir}
+	r := &Run{Dir: dir, FS: fsys}
 	m := &Manifest{
 		Tool:          "nightjar",
 		FormatVersion: ManifestVersion,
@@ -103,7 +122,7 @@ func (r *Run) SaveManifest(m *Manifest) error {
 	if err != nil {
 		return fmt.Errorf("saving manifest of %s: %w", r.Dir, err)
 	}
-	if err := AtomicWrite(r.Path(ManifestName), func(w io.Writer) error {
+	if err := AtomicWriteFS(r.fsys(), r.Path(ManifestName), func(w io.Writer) error {
 		_, err := w.Write(b)
 		return err
 	}); err != nil {
@@ -175,8 +194,8 @@ func (r *Run) SaveState(iteration int, sections []Section) error {
 		}
 		all = append(all, s)
 	}
-	all = append(all, Section{Name: iterationSection, Data: Int64Bytes([]int64{int64(iteration)})})
-	if err := WriteFile(r.Path(stateName(iteration)), KindState, all); err != nil {
+	all = append(all, Section{Name: iterationSection, Data: EncodeValues([]int64{int64(iteration)})})
+	if err := writeFile(r.fsys(), r.Path(stateName(iteration)), KindState, all); err != nil {
 		return fmt.Errorf("saving state at iteration %d: %w", iteration, err)
 	}
 	its, err := r.states()
@@ -189,7 +208,7 @@ func (r *Run) SaveState(iteration int, sections []Section) error {
 			kept++
 			continue
 		}
-		if err := os.Remove(r.Path(stateName(it))); err != nil && !errors.Is(err, fs.ErrNotExist) {
+		if err := r.fsys().Remove(r.Path(stateName(it))); err != nil && !errors.Is(err, fs.ErrNotExist) {
 			return fmt.Errorf("removing old state: %w", err)
 		}
 	}
@@ -243,7 +262,7 @@ func (r *Run) loadState(it int) ([]Section, error) {
 	if err != nil {
 		return nil, &CorruptError{File: path, Section: iterationSection, Reason: "missing"}
 	}
-	v, err := BytesInt64(b)
+	v, err := DecodeValues[int64](b)
 	if err != nil || len(v) != 1 || v[0] != int64(it) {
 		return nil, &CorruptError{File: path, Section: iterationSection, Reason: "does not match the iteration in the file name"}
 	}
@@ -272,7 +291,7 @@ func (r *Run) SaveArtifact(name, kind string, sections []Section) error {
 	if err != nil {
 		return err
 	}
-	if err := WriteFile(r.Path(f), kind, sections); err != nil {
+	if err := writeFile(r.fsys(), r.Path(f), kind, sections); err != nil {
 		return fmt.Errorf("saving %s: %w", name, err)
 	}
 	return nil

@@ -12,8 +12,8 @@ import (
 
 func stateSections(it int) []Section {
 	return []Section{
-		{Name: "embedding", Data: Float64Bytes([]float64{float64(it), -float64(it), 0.5})},
-		{Name: "gains", Data: Float64Bytes([]float64{1, 1, 1})},
+		{Name: "embedding", Data: EncodeValues([]float64{float64(it), -float64(it), 0.5})},
+		{Name: "gains", Data: EncodeValues([]float64{1, 1, 1})},
 	}
 }
 
@@ -95,7 +95,7 @@ func TestSaveStateKeepsTwo(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if v, _ := BytesFloat64(emb); !slices.Equal(v, []float64{150, -150, 0.5}) {
+	if v, _ := DecodeValues[float64](emb); !slices.Equal(v, []float64{150, -150, 0.5}) {
 		t.Errorf("embedding %v", v)
 	}
 	if len(secs) != 2 {
@@ -111,6 +111,47 @@ func TestSaveStateKeepsTwo(t *testing.T) {
 	want = []string{"state-000000100.njs", "state-000000125.njs"}
 	if got := stateFiles(t, r.Dir); !slices.Equal(got, want) {
 		t.Errorf("after resume, state files %v, want %v", got, want)
+	}
+}
+
+// TestSaveStateStopsAtEachStep stops SaveState at every file-system step in
+// turn, as a kill would, through Run.FS. After reopening (which clears
+// temporary files) LoadState must give the previous state or the new one,
+// intact, without warnings.
+func TestSaveStateStopsAtEachStep(t *testing.T) {
+	for step := 0; ; step++ {
+		r, err := CreateFS(t.TempDir(), &faultFS{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, it := range []int{10, 20} {
+			if err := r.SaveState(it, stateSections(it)); err != nil {
+				t.Fatal(err)
+			}
+		}
+		r.FS = &faultFS{fail: stopAt(step)}
+		stop := stopped(func() {
+			if err := r.SaveState(30, stateSections(30)); err != nil {
+				t.Fatal(err)
+			}
+		})
+		again, err := Open(r.Dir)
+		if err != nil {
+			t.Fatal(err)
+		}
+		it, secs, warns, err := again.LoadState()
+		if err != nil || len(warns) != 0 || it != 20 && it != 30 {
+			t.Fatalf("stopped at step %d: LoadState = %d, %v, %v", step, it, warns, err)
+		}
+		if v, err := SectionValues[float64](secs, "embedding"); err != nil || v[0] != float64(it) {
+			t.Fatalf("stopped at step %d: embedding %v, %v", step, v, err)
+		}
+		if !stop {
+			if it != 30 || step != 8 { // create, one buffered write, chmod, sync, close, rename, sync dir, remove of state 10
+				t.Errorf("SaveState finished after %d steps with state %d", step, it)
+			}
+			return
+		}
 	}
 }
 
@@ -247,8 +288,8 @@ func TestArtifacts(t *testing.T) {
 		t.Fatal(err)
 	}
 	graph := []Section{
-		{Name: "indices", Data: Int32Bytes([]int32{1, 0, 0, 1})},
-		{Name: "distances", Data: Float32Bytes([]float32{0.5, 0.5, 1, 1})},
+		{Name: "indices", Data: EncodeValues([]int32{1, 0, 0, 1})},
+		{Name: "distances", Data: EncodeValues([]float32{0.5, 0.5, 1, 1})},
 	}
 	if err := r.SaveArtifact("graph", "graph", graph); err != nil {
 		t.Fatal(err)

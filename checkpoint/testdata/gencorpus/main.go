@@ -36,15 +36,15 @@ func encode(kind string, secs []checkpoint.Section) []byte {
 
 func main() {
 	state := encode("state", []checkpoint.Section{
-		{Name: "embedding", Data: checkpoint.Float64Bytes([]float64{1, -2, 3.5, 4})},
+		{Name: "embedding", Data: checkpoint.EncodeValues([]float64{1, -2, 3.5, 4})},
 		{Name: "empty"},
-		{Name: "gains", Data: checkpoint.Float64Bytes([]float64{1, 0.8})},
-		{Name: "rng", Data: checkpoint.Uint64Bytes([]uint64{42})},
+		{Name: "gains", Data: checkpoint.EncodeValues([]float64{1, 0.8})},
+		{Name: "rng", Data: checkpoint.EncodeValues([]uint64{42})},
 	})
 	write("FuzzDecode", "valid-state", state)
 	write("FuzzDecode", "valid-empty", encode("state", nil))
 	write("FuzzDecode", "valid-graph", encode("graph", []checkpoint.Section{
-		{Name: "indices", Data: checkpoint.Int32Bytes([]int32{1, 0})},
+		{Name: "indices", Data: checkpoint.EncodeValues([]int32{1, 0})},
 	}))
 	for _, n := range []int{0, 5, 12, 20, 40, len(state) / 2, len(state) - 1} {
 		write("FuzzDecode", fmt.Sprintf("truncated-%03d", n), state[:n])
