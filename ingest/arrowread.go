@@ -241,9 +241,17 @@ func readArrowFile(path string, f *os.File, opt Options, ctl readCtl) (*Table, e
 }
 
 func readArrowStream(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) {
-	// Checked before the Arrow library sees the schema; see ipcFileRows.
-	if err := ipcStreamSchemaOK(f); err != nil {
-		return nil, wrapInputErr(path, "", 0, err, "corrupt Arrow IPC stream: bad schema message")
+	// Checked before the Arrow library sees the stream; see ipcStreamCheck.
+	if err := ipcStreamCheck(f); err != nil {
+		var se *streamError
+		switch {
+		case !errors.As(err, &se):
+			return nil, wrapInputErr(path, "", 0, err, "cannot read Arrow IPC stream")
+		case se.schema:
+			return nil, wrapInputErr(path, "", 0, se.err, "corrupt Arrow IPC stream: bad schema message")
+		default:
+			return nil, wrapInputErr(path, "", se.rows+1, se.err, "truncated or corrupt Arrow IPC stream")
+		}
 	}
 	r, err := ipc.NewReader(bufio.NewReaderSize(f, 1<<20), ipc.WithAllocator(allocFor(fileSize(f))))
 	if err != nil {

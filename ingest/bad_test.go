@@ -200,8 +200,8 @@ func TestInputErrorFormat(t *testing.T) {
 // TestDamagedFiles flips bytes, one at a time, of a small Arrow IPC file, Arrow IPC
 // stream and Parquet file (every byte of the first 64 and last 192, and every ninth
 // in between): reading
-// must not panic and must either succeed or give an *InputError; the IPC footer scan
-// must not panic either.
+// must not panic and must either succeed or give an *InputError; the IPC checks of
+// ipcfooter.go must not panic on any of them either.
 func TestDamagedFiles(t *testing.T) {
 	rec := nullRecord([]int64{1, 2, 3, 4, 5}, nil, []float64{1, 2, 3, 4, 5}, nil)
 	defer rec.Release()
@@ -253,6 +253,7 @@ func damage(t *testing.T, orig []byte) {
 			}()
 			g, _ := os.Open(bad)
 			ipcFileRows(g)
+			ipcStreamCheck(g)
 			g.Close()
 			_, err := Read(bad, Options{ID: "id"})
 			var ie *InputError

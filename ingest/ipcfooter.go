@@ -4,122 +4,230 @@ import (
 	"encoding/binary"
 	"errors"
 	"fmt"
+	"io"
+	"math"
 	"os"
+
+	flatbuffers "github.com/google/flatbuffers/go"
 )
 
-// The Arrow library reads the footer of an IPC file but does not expose the row count
-// of each record batch without loading the batch, and it trusts the lengths it finds
-// there (a damaged footer can make it allocate hundreds of GiB and crash the
-// process). So the few fields needed are read and checked here by hand from the
-// footer and the record batch headers, following the Arrow columnar format
-// specification ("IPC File Format", File.fbs, Schema.fbs, Message.fbs) and the
-// FlatBuffers binary layout, before the file is handed to the library.
+// Arrow's Go IPC readers size Go slices straight from lengths found in the file
+// (the schema's field and key-value counts, the metadata length of a stream
+// message) with make, outside any memory.Allocator, so a capped allocator cannot
+// refuse them (TestArrowReaderTrustsLengths); and the file reader does not tell the
+// row count of each record batch without loading the batch. So the few fields
+// needed are read and checked here, before the file is handed to the library,
+// following the Arrow columnar format specification ("Serialization and
+// Interprocess Communication"; File.fbs, Schema.fbs, Message.fbs). Every vector
+// and string the library would size a slice from is checked to lie inside its
+// buffer, and every message to lie inside the file.
 
-// fbTable is a FlatBuffers table inside buf.
+// Field numbers of the Arrow format tables read here, in the order the fields are
+// declared in the format's .fbs files (a union takes two: its type tag, then the
+// value).
+const (
+	footerSchema        = 1 // Footer.schema: Schema
+	footerDictionaries  = 2 // Footer.dictionaries: [Block]
+	footerRecordBatches = 3 // Footer.recordBatches: [Block]
+
+	schemaFields         = 1 // Schema.fields: [Field]
+	schemaCustomMetadata = 2 // Schema.custom_metadata: [KeyValue]
+	schemaFeatures       = 3 // Schema.features: [long]
+
+	fieldName           = 0 // Field.name: string
+	fieldTypeType       = 2 // Field.type's tag: Type
+	fieldType           = 3 // Field.type: table of the tagged type
+	fieldChildren       = 5 // Field.children: [Field]
+	fieldCustomMetadata = 6 // Field.custom_metadata: [KeyValue]
+
+	keyValueKey   = 0 // KeyValue.key: string
+	keyValueValue = 1 // KeyValue.value: string
+
+	timestampTimezone = 1 // Timestamp.timezone: string
+	unionTypeIDs      = 1 // Union.typeIds: [int]
+
+	messageHeaderType = 1 // Message.header's tag: MessageHeader
+	messageHeader     = 2 // Message.header: table of the tagged header
+	messageBodyLength = 3 // Message.bodyLength: long
+
+	recordBatchLength = 0 // RecordBatch.length: long
+)
+
+// Tags of the unions Type and MessageHeader (Schema.fbs, Message.fbs).
+const (
+	typeTimestamp     = 10
+	typeUnion         = 14
+	headerSchema      = 1
+	headerRecordBatch = 3
+)
+
+// Layout of the struct Block { offset: long; metaDataLength: int; bodyLength:
+// long } (File.fbs): 24 bytes with 4 bytes of padding after metaDataLength.
+const (
+	blockOffset     = 0
+	blockMetaLength = 8
+	blockBodyLength = 16
+	blockSize       = 24
+)
+
+// Sizes of the IPC framing: the file's trailer (int32 footer length, "ARROW1"),
+// a message's continuation marker, and the bound on one message's metadata.
+const (
+	fileTrailer     = 10
+	continuation    = 0xFFFFFFFF
+	maxMessageBytes = 1 << 26
+	maxSchemaDepth  = 64
+)
+
+// errFooter is the reason given for any malformed footer or message header.
+var errFooter = errors.New("malformed footer or message header")
+
+// fbTable is a FlatBuffers table whose vtable and inline part were checked to lie
+// inside the buffer, so that the flatbuffers accessors, which do not check, cannot
+// read past its end.
 type fbTable struct {
-	buf []byte
-	pos int
+	flatbuffers.Table
+	size uint32 // bytes of the inline part (the vtable's second entry)
 }
 
-func le32(b []byte, p int) (uint32, bool) {
-	if p < 0 || p+4 > len(b) {
-		return 0, false
+// fbAt checks the table at position pos of buf.
+func fbAt(buf []byte, pos uint64) (fbTable, bool) {
+	n := uint64(len(buf))
+	if pos+flatbuffers.SizeSOffsetT > n || n > math.MaxInt32 {
+		return fbTable{}, false
 	}
-	return binary.LittleEndian.Uint32(b[p:]), true
+	vt := int64(pos) - int64(flatbuffers.GetSOffsetT(buf[pos:]))
+	if vt < 0 || uint64(vt)+2*flatbuffers.SizeVOffsetT > n {
+		return fbTable{}, false
+	}
+	vtSize := uint64(flatbuffers.GetVOffsetT(buf[vt:]))
+	inline := uint64(flatbuffers.GetVOffsetT(buf[vt+flatbuffers.SizeVOffsetT:]))
+	if vtSize < 2*flatbuffers.SizeVOffsetT || vtSize%2 != 0 || uint64(vt)+vtSize > n || inline < flatbuffers.SizeSOffsetT || pos+inline > n {
+		return fbTable{}, false
+	}
+	return fbTable{flatbuffers.Table{Bytes: buf, Pos: flatbuffers.UOffsetT(pos)}, uint32(inline)}, true
 }
 
 // fbRoot returns the root table of a FlatBuffers buffer.
 func fbRoot(buf []byte) (fbTable, bool) {
-	off, ok := le32(buf, 0)
-	return fbTable{buf, int(off)}, ok && int(off) < len(buf)
+	if len(buf) < flatbuffers.SizeUOffsetT {
+		return fbTable{}, false
+	}
+	return fbAt(buf, uint64(flatbuffers.GetUOffsetT(buf)))
 }
 
-// field returns the position of field i of t; present is false for a field left
-// out (FlatBuffers omits scalars equal to their default) and valid is false for a
-// malformed table.
-func (t fbTable) field(i int) (pos int, present, valid bool) {
-	so, ok := le32(t.buf, t.pos)
-	if !ok {
-		return 0, false, false
-	}
-	vt := t.pos - int(int32(so))
-	if vt < 0 || vt+4 > len(t.buf) {
-		return 0, false, false
-	}
-	vtSize := int(binary.LittleEndian.Uint16(t.buf[vt:]))
-	slot := vt + 4 + 2*i
-	if slot+2 > vt+vtSize || slot+2 > len(t.buf) {
-		return 0, false, true // the vtable predates the field
-	}
-	off := int(binary.LittleEndian.Uint16(t.buf[slot:]))
-	if off == 0 {
+// slot returns the vtable entry of field number f.
+func slot(f int) flatbuffers.VOffsetT {
+	return flatbuffers.VOffsetT(2*flatbuffers.SizeVOffsetT + f*flatbuffers.SizeVOffsetT)
+}
+
+// field returns the offset in t of field f, size bytes wide: present is false
+// for a field left out (FlatBuffers omits scalars equal to their default, and a
+// vtable written before the field existed ends before its entry), ok is false
+// when the field does not fit in the table.
+func (t fbTable) field(f, size int) (off flatbuffers.UOffsetT, present, ok bool) {
+	o := t.Offset(slot(f))
+	if o == 0 {
 		return 0, false, true
 	}
-	return t.pos + off, true, true
+	if uint32(o)+uint32(size) > t.size {
+		return 0, true, false
+	}
+	return flatbuffers.UOffsetT(o), true, true
 }
 
-// ref follows the offset stored in field i (a table or vector).
-func (t fbTable) ref(i int) (int, bool) {
-	p, present, _ := t.field(i)
-	if !present {
-		return 0, false
+// int64Field returns scalar field f (0 when left out).
+func (t fbTable) int64Field(f int) (int64, bool) {
+	off, present, ok := t.field(f, flatbuffers.SizeInt64)
+	if !present || !ok {
+		return 0, ok
 	}
-	u, ok := le32(t.buf, p)
-	if !ok || p+int(u) >= len(t.buf) {
-		return 0, false
-	}
-	return p + int(u), true
+	return t.GetInt64(t.Pos + off), true
 }
 
-// int64Field returns scalar field i (0 when left out).
-func (t fbTable) int64Field(i int) (int64, bool) {
-	p, present, valid := t.field(i)
-	if !present {
-		return 0, valid
+// uint8Field returns scalar field f (0 when left out).
+func (t fbTable) uint8Field(f int) (uint8, bool) {
+	off, present, ok := t.field(f, flatbuffers.SizeUint8)
+	if !present || !ok {
+		return 0, ok
 	}
-	if p+8 > len(t.buf) {
-		return 0, false
-	}
-	return int64(binary.LittleEndian.Uint64(t.buf[p:])), true
+	return t.GetUint8(t.Pos + off), true
 }
 
-// uint8Field returns scalar field i (0 when left out).
-func (t fbTable) uint8Field(i int) (uint8, bool) {
-	p, present, valid := t.field(i)
-	if !present {
-		return 0, valid
-	}
-	if p >= len(t.buf) {
+// indirect follows the offset stored at position p to the position it points at.
+func (t fbTable) indirect(p flatbuffers.UOffsetT) (flatbuffers.UOffsetT, bool) {
+	if uint64(p)+flatbuffers.SizeUOffsetT > uint64(len(t.Bytes)) {
 		return 0, false
 	}
-	return t.buf[p], true
+	q := t.Indirect(p)
+	return q, q >= p && uint64(q) < uint64(len(t.Bytes))
 }
 
-// errFooter is the reason given for any malformed footer or record batch header.
-var errFooter = errors.New("malformed footer or record batch header")
+// tableField returns the table in field f (a table or a union value).
+func (t fbTable) tableField(f int) (sub fbTable, present, ok bool) {
+	off, present, ok := t.field(f, flatbuffers.SizeUOffsetT)
+	if !present || !ok {
+		return fbTable{}, present, ok
+	}
+	p, ok := t.indirect(t.Pos + off)
+	if !ok {
+		return fbTable{}, true, false
+	}
+	sub, ok = fbAt(t.Bytes, uint64(p))
+	return sub, true, ok
+}
+
+// vector returns the start and length of the vector (or string) in field f with
+// elements of elem bytes, after checking that it lies inside the buffer. A field
+// left out is an empty vector.
+func (t fbTable) vector(f, elem int) (start flatbuffers.UOffsetT, n int, ok bool) {
+	off, present, ok := t.field(f, flatbuffers.SizeUOffsetT)
+	if !present || !ok {
+		return 0, 0, ok
+	}
+	hdr, ok := t.indirect(t.Pos + off)
+	if !ok || uint64(hdr)+flatbuffers.SizeUOffsetT > uint64(len(t.Bytes)) {
+		return 0, 0, false
+	}
+	start, n = t.Vector(off), t.VectorLen(off)
+	if uint64(start)+uint64(n)*uint64(elem) > uint64(len(t.Bytes)) {
+		return 0, 0, false
+	}
+	return start, n, true
+}
+
+// element returns table k of a vector of tables starting at start.
+func (t fbTable) element(start flatbuffers.UOffsetT, k int) (fbTable, bool) {
+	p, ok := t.indirect(start + flatbuffers.UOffsetT(k*flatbuffers.SizeUOffsetT))
+	if !ok {
+		return fbTable{}, false
+	}
+	return fbAt(t.Bytes, uint64(p))
+}
 
 // ipcFileRows returns the total number of rows of the record batches of an Arrow IPC
 // file, from its footer and the record batch headers, without reading the bodies. It
-// also checks that every record batch lies inside the file: the Arrow library would
-// otherwise allocate whatever body length a damaged footer announces.
+// checks the schema (see schemaOK) and that every record batch and dictionary batch
+// lies inside the file: the Arrow library would otherwise allocate whatever lengths
+// a damaged footer announces.
 func ipcFileRows(f *os.File) (int64, error) {
 	st, err := f.Stat()
 	if err != nil {
 		return 0, err
 	}
 	size := st.Size()
-	if size < 20 {
+	if size < 2*fileTrailer {
 		return 0, errFooter
 	}
-	var tail [10]byte
-	if _, err := f.ReadAt(tail[:], size-10); err != nil {
+	var tail [fileTrailer]byte
+	if _, err := f.ReadAt(tail[:], size-fileTrailer); err != nil {
 		return 0, err
 	}
 	flen := int64(int32(binary.LittleEndian.Uint32(tail[:4])))
-	if flen <= 0 || flen > size-18 || flen > 1<<30 {
+	if flen <= 0 || flen > size-fileTrailer-8 || flen > 1<<30 {
 		return 0, errFooter
 	}
-	footerStart := size - 10 - flen
+	footerStart := size - fileTrailer - flen
 	footer := make([]byte, flen)
 	if _, err := f.ReadAt(footer, footerStart); err != nil {
 		return 0, err
@@ -128,53 +236,46 @@ func ipcFileRows(f *os.File) (int64, error) {
 	if !ok {
 		return 0, errFooter
 	}
-	if sp, ok := root.ref(1); !ok || !schemaOK(fbTable{footer, sp}) { // Footer.schema
+	if schema, present, ok := root.tableField(footerSchema); !present || !ok || !schemaOK(schema) {
 		return 0, errFooter
 	}
-	vec, ok := root.ref(3) // Footer.recordBatches: [Block]
-	if !ok {
-		if _, present, valid := root.field(3); !present && valid {
-			return 0, nil // no record batches
-		}
-		return 0, errFooter
+	if _, err := ipcBlocks(root, footerDictionaries, "dictionary batch", footerStart, nil); err != nil {
+		return 0, err
 	}
-	count, ok := le32(footer, vec)
-	const blockSize = 24 // struct Block { offset: long; metaDataLength: int; bodyLength: long }
-	if !ok || int64(vec)+4+int64(count)*blockSize > int64(len(footer)) {
-		return 0, errFooter
-	}
-	var total int64
-	for b := 0; b < int(count); b++ {
-		p := vec + 4 + b*blockSize
-		off := int64(binary.LittleEndian.Uint64(footer[p:]))
-		metaLen := int64(int32(binary.LittleEndian.Uint32(footer[p+8:])))
-		bodyLen := int64(binary.LittleEndian.Uint64(footer[p+16:]))
-		if off < 8 || metaLen < 8 || bodyLen < 0 || metaLen > footerStart || bodyLen > footerStart ||
-			off > footerStart-metaLen-bodyLen {
-			return 0, fmt.Errorf("record batch %d lies outside the file", b)
-		}
+	return ipcBlocks(root, footerRecordBatches, "record batch", footerStart, func(off, metaLen int64) (int64, error) {
 		meta := make([]byte, metaLen)
 		if _, err := f.ReadAt(meta, off); err != nil {
 			return 0, err
 		}
-		// Encapsulated message: optional 0xFFFFFFFF continuation, int32 length, Message.
-		start := 4
-		if binary.LittleEndian.Uint32(meta) == 0xFFFFFFFF {
-			start = 8
+		return batchRows(meta)
+	})
+}
+
+// ipcBlocks checks the blocks of what (a kind of batch) in the footer's vector
+// field f: each must lie in [0, end) of the file. With rows non-nil it returns the
+// sum of rows(offset, metadata length) over the blocks.
+func ipcBlocks(root fbTable, f int, what string, end int64, rows func(off, metaLen int64) (int64, error)) (int64, error) {
+	start, count, ok := root.vector(f, blockSize)
+	if !ok {
+		return 0, errFooter
+	}
+	var total int64
+	for b := 0; b < count; b++ {
+		p := start + flatbuffers.UOffsetT(b*blockSize)
+		off := root.GetInt64(p + blockOffset)
+		metaLen := int64(root.GetInt32(p + blockMetaLength))
+		bodyLen := root.GetInt64(p + blockBodyLength)
+		if off < 8 || metaLen < 8 || bodyLen < 0 || metaLen > end || bodyLen > end || off > end-metaLen-bodyLen {
+			return 0, fmt.Errorf("%s %d lies outside the file", what, b)
 		}
-		msg, ok := fbRoot(meta[start:])
-		if !ok {
-			return 0, errFooter
+		if rows == nil {
+			continue
 		}
-		if ht, ok := msg.uint8Field(1); !ok || ht != 3 { // MessageHeader.RecordBatch
-			return 0, errFooter
+		n, err := rows(off, metaLen)
+		if err != nil {
+			return 0, err
 		}
-		hdr, ok := msg.ref(2)
-		if !ok {
-			return 0, errFooter
-		}
-		n, ok := fbTable{msg.buf, hdr}.int64Field(0) // RecordBatch.length
-		if !ok || n < 0 {
+		if n > math.MaxInt64-total {
 			return 0, errFooter
 		}
 		total += n
@@ -182,159 +283,204 @@ func ipcFileRows(f *os.File) (int64, error) {
 	return total, nil
 }
 
-// vecOK reports whether the vector in field i of t (absent is fine) fits in the
-// buffer with elements of elem bytes; it returns the vector position and length.
-func (t fbTable) vecOK(i, elem int) (pos, n int, ok bool) {
-	_, present, valid := t.field(i)
-	if !valid {
-		return 0, 0, false
+// batchRows returns the row count of the record batch whose encapsulated message
+// (optional continuation marker, int32 length, Message) is meta.
+func batchRows(meta []byte) (int64, error) {
+	start := 4
+	if binary.LittleEndian.Uint32(meta) == continuation {
+		start = 8
 	}
-	if !present {
-		return 0, 0, true
-	}
-	v, ok := t.ref(i)
+	msg, ok := fbRoot(meta[start:])
 	if !ok {
-		return 0, 0, false
+		return 0, errFooter
 	}
-	l, ok := le32(t.buf, v)
-	if !ok || int64(v)+4+int64(l)*int64(elem) > int64(len(t.buf)) {
-		return 0, 0, false
+	if tag, ok := msg.uint8Field(messageHeaderType); !ok || tag != headerRecordBatch {
+		return 0, errFooter
 	}
-	return v, int(l), true
+	hdr, present, ok := msg.tableField(messageHeader)
+	if !present || !ok {
+		return 0, errFooter
+	}
+	n, ok := hdr.int64Field(recordBatchLength)
+	if !ok || n < 0 {
+		return 0, errFooter
+	}
+	return n, nil
 }
 
-// elemTable returns element k of a vector of tables at pos.
-func (t fbTable) elemTable(pos, k int) (fbTable, bool) {
-	p := pos + 4 + 4*k
-	u, ok := le32(t.buf, p)
-	if !ok || p+int(u) >= len(t.buf) {
-		return fbTable{}, false
-	}
-	return fbTable{t.buf, p + int(u)}, true
-}
-
-// schemaOK checks that every vector and string of an Arrow Schema table (Schema.fbs:
-// fields, custom metadata, features; per Field: name, type, dictionary, children,
-// custom metadata) lies inside the buffer, because the Arrow library sizes slices from
-// these lengths before it looks at the data. depth bounds the nesting of children.
+// schemaOK checks that every vector and string of an Arrow Schema table (fields,
+// custom metadata, features; per Field: name, type, children, custom metadata) lies
+// inside the buffer, because the Arrow library sizes slices from these lengths
+// before it looks at the data.
 func schemaOK(s fbTable) bool {
-	if _, _, ok := s.vecOK(3, 8); !ok { // features: [long]
+	if _, _, ok := s.vector(schemaFeatures, flatbuffers.SizeInt64); !ok {
 		return false
 	}
-	if !keyValuesOK(s, 2) {
-		return false
-	}
-	return fieldsOK(s, 1, 0)
+	return keyValuesOK(s, schemaCustomMetadata) && fieldsOK(s, schemaFields, 0)
 }
 
-func fieldsOK(t fbTable, i, depth int) bool {
-	if depth > 64 {
+// fieldsOK checks the vector of Field tables in field f of t, and their children
+// down to maxSchemaDepth levels.
+func fieldsOK(t fbTable, f, depth int) bool {
+	if depth > maxSchemaDepth {
 		return false
 	}
-	pos, n, ok := t.vecOK(i, 4)
+	start, n, ok := t.vector(f, flatbuffers.SizeUOffsetT)
 	if !ok {
 		return false
 	}
 	for k := 0; k < n; k++ {
-		f, ok := t.elemTable(pos, k)
+		fd, ok := t.element(start, k)
 		if !ok {
 			return false
 		}
-		if _, _, ok := f.vecOK(0, 1); !ok { // name
+		if _, _, ok := fd.vector(fieldName, 1); !ok {
 			return false
 		}
-		kind, ok := f.uint8Field(2) // Field.type_type
+		tag, ok := fd.uint8Field(fieldTypeType)
 		if !ok {
 			return false
 		}
-		if tp, present, valid := f.field(3); !valid || (present && !typeOK(kind, fbTableAt(f, tp))) {
+		if typ, present, ok := fd.tableField(fieldType); !ok || (present && !typeOK(tag, typ)) {
 			return false
 		}
-		if !keyValuesOK(f, 6) || !fieldsOK(f, 5, depth+1) {
+		if !keyValuesOK(fd, fieldCustomMetadata) || !fieldsOK(fd, fieldChildren, depth+1) {
 			return false
 		}
 	}
 	return true
 }
 
-// fbTableAt follows the table offset stored at position p.
-func fbTableAt(t fbTable, p int) fbTable {
-	u, ok := le32(t.buf, p)
-	if !ok || p+int(u) >= len(t.buf) {
-		return fbTable{t.buf, -1}
+// typeOK checks the vectors a type table may hold: Timestamp.timezone and
+// Union.typeIds.
+func typeOK(tag uint8, t fbTable) bool {
+	var ok bool
+	switch tag {
+	case typeTimestamp:
+		_, _, ok = t.vector(timestampTimezone, 1)
+	case typeUnion:
+		_, _, ok = t.vector(unionTypeIDs, flatbuffers.SizeInt32)
+	default:
+		ok = true
 	}
-	return fbTable{t.buf, p + int(u)}
+	return ok
 }
 
-// typeOK checks the vectors a type table may hold: Timestamp.timezone (Type 10) and
-// Union.typeIds (Type 14), both field 1.
-func typeOK(kind uint8, t fbTable) bool {
-	if t.pos < 0 {
-		return false
-	}
-	switch kind {
-	case 10:
-		_, _, ok := t.vecOK(1, 1)
-		return ok
-	case 14:
-		_, _, ok := t.vecOK(1, 4)
-		return ok
-	}
-	return true
-}
-
-func keyValuesOK(t fbTable, i int) bool {
-	pos, n, ok := t.vecOK(i, 4)
+// keyValuesOK checks the vector of KeyValue tables in field f of t.
+func keyValuesOK(t fbTable, f int) bool {
+	start, n, ok := t.vector(f, flatbuffers.SizeUOffsetT)
 	if !ok {
 		return false
 	}
 	for k := 0; k < n; k++ {
-		kv, ok := t.elemTable(pos, k)
+		kv, ok := t.element(start, k)
 		if !ok {
 			return false
 		}
-		if _, _, ok := kv.vecOK(0, 1); !ok {
+		if _, _, ok := kv.vector(keyValueKey, 1); !ok {
 			return false
 		}
-		if _, _, ok := kv.vecOK(1, 1); !ok {
+		if _, _, ok := kv.vector(keyValueValue, 1); !ok {
 			return false
 		}
 	}
 	return true
 }
 
-// ipcStreamSchemaOK checks the first message of an Arrow IPC stream: a Schema message
-// whose vectors lie inside it (see schemaOK). It reads through f's ReadAt.
-func ipcStreamSchemaOK(f *os.File) error {
+// streamError is a fault found by ipcStreamCheck, at the message that follows
+// rows rows of record batches.
+type streamError struct {
+	rows   int64
+	schema bool // the fault is in the schema message
+	err    error
+}
+
+func (e *streamError) Error() string { return e.err.Error() }
+
+func (e *streamError) Unwrap() error { return e.err }
+
+// ipcStreamCheck walks the messages of the Arrow IPC stream in f up to its
+// end-of-stream marker or the end of the file: the first must be a Schema message
+// whose vectors lie inside it (see schemaOK), and every message's metadata and body
+// must lie inside the file, because the Arrow library allocates the announced
+// lengths before reading. It returns nil or a *streamError.
+func ipcStreamCheck(f *os.File) error {
 	st, err := f.Stat()
 	if err != nil {
 		return err
 	}
-	var pre [8]byte
-	if _, err := f.ReadAt(pre[:], 0); err != nil {
-		return errFooter
+	size := st.Size()
+	var rows int64
+	var meta []byte
+	for pos, k := int64(0), 0; ; k++ {
+		fault := func(format string, args ...any) error {
+			return &streamError{rows: rows, schema: k == 0, err: fmt.Errorf(format, args...)}
+		}
+		var pre [8]byte
+		if n, _ := f.ReadAt(pre[:], pos); n < 4 {
+			if k == 0 {
+				return fault("%w", errFooter)
+			}
+			return nil // the end, or a cut the Arrow library reports
+		}
+		start, n := int64(4), int64(int32(binary.LittleEndian.Uint32(pre[:4])))
+		if uint32(n) == continuation {
+			start, n = 8, int64(int32(binary.LittleEndian.Uint32(pre[4:])))
+		}
+		if n == 0 && k > 0 {
+			return nil // end-of-stream marker
+		}
+		if n <= 0 || n > size-pos-start || n > maxMessageBytes {
+			return fault("message %d announces %d bytes of metadata, %d remain in the file", k, n, size-pos-start)
+		}
+		if int64(cap(meta)) < n {
+			meta = make([]byte, n)
+		}
+		meta = meta[:n]
+		if _, err := f.ReadAt(meta, pos+start); err != nil && err != io.EOF {
+			return err
+		}
+		body, tag, n2, err := messageInfo(meta, k == 0)
+		if err != nil {
+			return fault("message %d: %w", k, err)
+		}
+		pos += start + n
+		if body > size-pos {
+			return fault("message %d announces a body of %d bytes, %d remain in the file", k, body, size-pos)
+		}
+		pos += body
+		if tag == headerRecordBatch && n2 <= math.MaxInt64-rows {
+			rows += n2
+		}
 	}
-	start, n := int64(4), int64(int32(binary.LittleEndian.Uint32(pre[:4])))
-	if uint32(n) == 0xFFFFFFFF {
-		start, n = 8, int64(int32(binary.LittleEndian.Uint32(pre[4:])))
-	}
-	if n <= 0 || n > st.Size()-start || n > 1<<26 {
-		return errFooter
-	}
-	meta := make([]byte, n)
-	if _, err := f.ReadAt(meta, start); err != nil {
-		return errFooter
-	}
+}
+
+// messageInfo returns the body length, header tag and (for a record batch) row
+// count of the Message in meta; a schema message must pass schemaOK.
+func messageInfo(meta []byte, schema bool) (body int64, tag uint8, rows int64, err error) {
 	msg, ok := fbRoot(meta)
 	if !ok {
-		return errFooter
+		return 0, 0, 0, errFooter
 	}
-	if ht, ok := msg.uint8Field(1); !ok || ht != 1 { // MessageHeader.Schema
-		return errFooter
+	tag, ok = msg.uint8Field(messageHeaderType)
+	if !ok || schema && tag != headerSchema {
+		return 0, 0, 0, errFooter
 	}
-	sp, ok := msg.ref(2)
-	if !ok || !schemaOK(fbTable{meta, sp}) {
-		return errFooter
+	body, ok = msg.int64Field(messageBodyLength)
+	if !ok || body < 0 {
+		return 0, 0, 0, errFooter
 	}
-	return nil
+	hdr, present, ok := msg.tableField(messageHeader)
+	if !present || !ok {
+		return 0, 0, 0, errFooter
+	}
+	switch {
+	case schema && !schemaOK(hdr):
+		return 0, 0, 0, errFooter
+	case tag == headerRecordBatch:
+		if rows, ok = hdr.int64Field(recordBatchLength); !ok || rows < 0 {
+			return 0, 0, 0, errFooter
+		}
+	}
+	return body, tag, rows, nil
 }
