@@ -151,8 +151,37 @@ func readParquet(path string, f *os.File, opt Options, ctl readCtl) (*Table, err
 	if total == 0 {
 		return nil, inputErr(path, "", 0, "empty table (0 rows)")
 	}
-	// The record reader returns the fields in the order of the leaf columns asked for;
-	// ask for each needed field once and remember where it lands.
+	leaves, rsel, err := parquetLeaves(path, fr, sc, sel)
+	if err != nil {
+		return nil, err
+	}
+	rr, err := fr.GetRecordReader(context.Background(), leaves, nil)
+	if err != nil {
+		return nil, wrapInputErr(path, "", 0, err, "cannot read Parquet columns")
+	}
+	defer rr.Release()
+	plan := planFor(path, sc, sel, opt, total, ctl.noPass)
+	plan.feat, plan.id, plan.label = rsel.features, rsel.id, rsel.label
+	b := newBuilder(path, sel.names(arrowCols(sc)), opt, presizeRows(total, len(sel.features), fileSize(f)), ctl)
+	for rr.Next() {
+		if err := plan.consume(b, rr.Record()); err != nil {
+			return nil, err
+		}
+	}
+	if err := rr.Err(); err != nil && !errors.Is(err, io.EOF) {
+		return nil, wrapInputErr(path, "", b.seen+1, err, "corrupt Parquet data")
+	}
+	if b.seen != total {
+		return nil, inputErr(path, "", 0, "Parquet metadata announces %d rows but %d were read", total, b.seen)
+	}
+	return plan.finishTable(b)
+}
+
+// parquetLeaves returns the leaf columns to read for the selected schema fields,
+// each needed field once, and the selection in terms of the columns of the
+// records read (the record reader returns the fields in the order of the leaf
+// columns asked for). A nested column is an error.
+func parquetLeaves(path string, fr *pqarrow.FileReader, sc *arrow.Schema, sel selection) ([]int, selection, error) {
 	var leaves, fields []int
 	at := make(map[int]int) // schema field -> record column
 	need := func(field int) int {
@@ -176,29 +205,10 @@ func readParquet(path string, f *os.File, opt Options, ctl readCtl) (*Table, err
 	}
 	for k, leaf := range leaves {
 		if leaf < 0 {
-			return nil, inputErr(path, sc.Field(fields[k]).Name, 0, "nested column cannot be read")
+			return nil, rsel, inputErr(path, sc.Field(fields[k]).Name, 0, "nested column cannot be read")
 		}
 	}
-	rr, err := fr.GetRecordReader(context.Background(), leaves, nil)
-	if err != nil {
-		return nil, wrapInputErr(path, "", 0, err, "cannot read Parquet columns")
-	}
-	defer rr.Release()
-	plan := planFor(path, sc, sel, opt, total, ctl.noPass)
-	plan.feat, plan.id, plan.label = rsel.features, rsel.id, rsel.label
-	b := newBuilder(path, sel.names(arrowCols(sc)), opt, presizeRows(total, len(sel.features), fileSize(f)), ctl)
-	for rr.Next() {
-		if err := plan.consume(b, rr.Record()); err != nil {
-			return nil, err
-		}
-	}
-	if err := rr.Err(); err != nil && !errors.Is(err, io.EOF) {
-		return nil, wrapInputErr(path, "", b.seen+1, err, "corrupt Parquet data")
-	}
-	if b.seen != total {
-		return nil, inputErr(path, "", 0, "Parquet metadata announces %d rows but %d were read", total, b.seen)
-	}
-	return plan.finishTable(b)
+	return leaves, rsel, nil
 }
 
 func readArrowFile(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) {

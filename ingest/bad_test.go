@@ -176,7 +176,7 @@ func TestBadInput(t *testing.T) {
 	}
 }
 
-// TestInputErrorFormat pins the message layout of the example.
+// TestInputErrorFormat pins the message layout of the example on InputError.
 func TestInputErrorFormat(t *testing.T) {
 	cases := []struct {
 		e    InputError

@@ -91,32 +91,41 @@ func selectColumns(file string, cols []colInfo, opt Options) (selection, error) 
 			}
 			continue
 		}
-		if _, err := path.Match(f, ""); err != nil {
-			return sel, inputErr(file, "", 0, "bad feature pattern %q: %v", f, err)
-		}
-		matched, numeric := 0, 0
-		for i, c := range cols {
-			if ok, _ := path.Match(f, c.name); !ok {
-				continue
-			}
-			matched++
-			if !c.numeric || passThrough(i) {
-				continue
-			}
-			numeric++
-			if !taken[i] {
-				taken[i] = true
-				sel.features = append(sel.features, i)
-			}
-		}
-		switch {
-		case matched == 0:
-			return sel, inputErr(file, "", 0, "feature pattern %q matches no column (the table has %s)", f, listNames(cols, 6))
-		case numeric == 0:
-			return sel, inputErr(file, "", 0, "feature pattern %q matches no numeric column", f)
+		if err := sel.addMatches(file, f, cols, taken, passThrough); err != nil {
+			return sel, err
 		}
 	}
 	return sel, nil
+}
+
+// addMatches appends the numeric columns that the glob pattern matches and that
+// are neither taken already nor pass-through columns, in file order.
+func (sel *selection) addMatches(file, pattern string, cols []colInfo, taken []bool, passThrough func(int) bool) error {
+	if _, err := path.Match(pattern, ""); err != nil {
+		return inputErr(file, "", 0, "bad feature pattern %q: %v", pattern, err)
+	}
+	matched, numeric := 0, 0
+	for i, c := range cols {
+		if ok, _ := path.Match(pattern, c.name); !ok {
+			continue
+		}
+		matched++
+		if !c.numeric || passThrough(i) {
+			continue
+		}
+		numeric++
+		if !taken[i] {
+			taken[i] = true
+			sel.features = append(sel.features, i)
+		}
+	}
+	switch {
+	case matched == 0:
+		return inputErr(file, "", 0, "feature pattern %q matches no column (the table has %s)", pattern, listNames(cols, 6))
+	case numeric == 0:
+		return inputErr(file, "", 0, "feature pattern %q matches no numeric column", pattern)
+	}
+	return nil
 }
 
 // listNames lists up to max column names for messages, e.g. `"a", "b", … 12 more`.
