@@ -1,4 +1,4 @@
-package bench
+package score
 
 import (
 	"math"
@@ -6,7 +6,7 @@ import (
 
 	"gonum.org/v1/gonum/stat"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
 )
 
 // CentroidRank measures how much of the layout of labelled groups a map
@@ -21,9 +21,9 @@ import (
 // x is N×D, y is N×dims row-major, labels has N entries. Rows with an empty
 // label are left out. It returns NaN with fewer than 3 groups. It panics if
 // the lengths disagree.
-func CentroidRank(x ingest.Matrix, y []float64, dims int, labels []string) float64 {
+func CentroidRank(x core.Matrix, y []float64, dims int, labels []string) float64 {
 	if len(labels) != x.N || len(y) != x.N*dims {
-		panic("bench: CentroidRank needs N labels and N×dims map values")
+		panic("score.CentroidRank: needs N labels and N×dims map values")
 	}
 	var names []string
 	group := map[string]int{}

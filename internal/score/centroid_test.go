@@ -1,10 +1,10 @@
-package bench
+package score
 
 import (
 	"math"
 	"testing"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
 )
 
 // TestCentroidRank uses hand-worked examples of Kendall's τ (Kendall 1938:
@@ -12,7 +12,7 @@ import (
 func TestCentroidRank(t *testing.T) {
 	// Groups a, b, c with input centroids 0, 1, 3 (1-D, two rows each around
 	// the centroid): pair distances ab = 1, ac = 3, bc = 2.
-	x := ingest.Matrix{N: 7, D: 1, Data: []float32{-0.5, 0.5, 1, 1, 2, 4, 99}}
+	x := core.Matrix{N: 7, D: 1, Data: []float32{-0.5, 0.5, 1, 1, 2, 4, 99}}
 	labels := []string{"a", "a", "b", "b", "c", "c", ""} // the unlabelled row is left out
 	for _, tc := range []struct {
 		name string

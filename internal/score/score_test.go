@@ -1,4 +1,4 @@
-package bench
+package score
 
 import (
 	"fmt"
@@ -8,14 +8,14 @@ import (
 	"sort"
 	"testing"
 
-	"nightjar/ingest"
+	"nightjar/internal/core"
 )
 
 // line6 is the hand-worked example of the tests below: six points on a line at
 // 0, 1, 3, 7, 12, 20 (gaps 1, 2, 4, 5, 8: no equal distances), and a 2-D map on
 // the x axis where rows 2 and 3 swap places: 0, 1, 7, 3, 12, 20.
-func line6() (ingest.Matrix, []float64) {
-	x := ingest.Matrix{N: 6, D: 1, Data: []float32{0, 1, 3, 7, 12, 20}}
+func line6() (core.Matrix, []float64) {
+	x := core.Matrix{N: 6, D: 1, Data: []float32{0, 1, 3, 7, 12, 20}}
 	y := []float64{0, 0, 1, 0, 7, 0, 3, 0, 12, 0, 20, 0}
 	return x, y
 }
@@ -59,19 +59,19 @@ func TestNeighbourhoodHandWorked(t *testing.T) {
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
 			for _, threads := range []int{1, 3} {
-				got := Neighbourhood(x, y, 2, tc.k, tc.sample, threads)
+				got := Neighbourhood(InputSpace(x), MapSpace(y, 2), tc.k, tc.sample, threads)
 				if !approx(got.Trustworthiness, tc.t) || !approx(got.Continuity, tc.c) || !approx(got.Preservation, tc.p) {
 					t.Errorf("threads %d: T, C, P = %v, %v, %v; want %v, %v, %v", threads,
 						got.Trustworthiness, got.Continuity, got.Preservation, tc.t, tc.c, tc.p)
 				}
 			}
-			if got := Trustworthiness(x, y, 2, tc.k, tc.sample, 0); !approx(got, tc.t) {
+			if got := Trustworthiness(InputSpace(x), MapSpace(y, 2), tc.k, tc.sample, 0); !approx(got, tc.t) {
 				t.Errorf("Trustworthiness = %v, want %v", got, tc.t)
 			}
-			if got := Continuity(x, y, 2, tc.k, tc.sample, 0); !approx(got, tc.c) {
+			if got := Continuity(InputSpace(x), MapSpace(y, 2), tc.k, tc.sample, 0); !approx(got, tc.c) {
 				t.Errorf("Continuity = %v, want %v", got, tc.c)
 			}
-			if got := Preservation(x, y, 2, tc.k, tc.sample, 0); !approx(got, tc.p) {
+			if got := Preservation(InputSpace(x), MapSpace(y, 2), tc.k, tc.sample, 0); !approx(got, tc.p) {
 				t.Errorf("Preservation = %v, want %v", got, tc.p)
 			}
 		})
@@ -80,9 +80,9 @@ func TestNeighbourhoodHandWorked(t *testing.T) {
 
 func approx(a, b float64) bool { return math.Abs(a-b) < 1e-12 }
 
-func randomMatrix(n, d int, seed uint64) ingest.Matrix {
+func randomMatrix(n, d int, seed uint64) core.Matrix {
 	rng := rand.New(rand.NewPCG(seed, 3))
-	m := ingest.Matrix{N: n, D: d, Data: make([]float32, n*d)}
+	m := core.Matrix{N: n, D: d, Data: make([]float32, n*d)}
 	for i := range m.Data {
 		m.Data[i] = float32(rng.NormFloat64())
 	}
@@ -104,7 +104,7 @@ func TestNeighbourhoodPerfectMap(t *testing.T) {
 	}
 	for _, y := range [][]float64{same, rotated} {
 		for _, k := range []int{1, 5, 30} {
-			got := Neighbourhood(x, y, 2, k, nil, 2)
+			got := Neighbourhood(InputSpace(x), MapSpace(y, 2), k, nil, 2)
 			if got.Trustworthiness != 1 || got.Continuity != 1 || got.Preservation != 1 {
 				t.Errorf("k=%d: %+v, want all 1", k, got)
 			}
@@ -123,7 +123,7 @@ func TestNeighbourhoodRandomMap(t *testing.T) {
 	for i := range y {
 		y[i] = rng.NormFloat64()
 	}
-	got := Neighbourhood(x, y, 2, 10, nil, 0)
+	got := Neighbourhood(InputSpace(x), MapSpace(y, 2), 10, nil, 0)
 	if math.Abs(got.Trustworthiness-0.5) > 0.03 || math.Abs(got.Continuity-0.5) > 0.03 {
 		t.Errorf("random map: T = %v, C = %v, want about 0.5", got.Trustworthiness, got.Continuity)
 	}
@@ -153,7 +153,7 @@ func slowRanks(dist func(i, j int) float64, n, i int) (order []int, rank []int) 
 func TestNeighbourhoodAgainstSortReference(t *testing.T) {
 	n, d, dims := 300, 4, 2
 	rng := rand.New(rand.NewPCG(4, 4))
-	x := ingest.Matrix{N: n, D: d, Data: make([]float32, n*d)}
+	x := core.Matrix{N: n, D: d, Data: make([]float32, n*d)}
 	for i := range x.Data {
 		x.Data[i] = float32(rng.IntN(4)) // ties everywhere
 	}
@@ -197,7 +197,7 @@ func TestNeighbourhoodAgainstSortReference(t *testing.T) {
 		norm := 2 / (float64(len(sample)) * float64(k) * float64(2*n-3*k-1))
 		wantT, wantC := 1-norm*float64(ut), 1-norm*float64(vc)
 		wantP := float64(shared) / float64(len(sample)*k)
-		got := Neighbourhood(x, y, dims, k, sample, 2)
+		got := Neighbourhood(InputSpace(x), MapSpace(y, dims), k, sample, 2)
 		if !approx(got.Trustworthiness, wantT) || !approx(got.Continuity, wantC) || !approx(got.Preservation, wantP) {
 			t.Errorf("k=%d: got %+v, reference T %v C %v P %v", k, got, wantT, wantC, wantP)
 		}
@@ -211,9 +211,9 @@ func TestNeighbourhoodThreadsBitIdentical(t *testing.T) {
 	for i := range y {
 		y[i] = rng.NormFloat64()
 	}
-	ref := Neighbourhood(x, y, 3, 9, nil, 1)
+	ref := Neighbourhood(InputSpace(x), MapSpace(y, 3), 9, nil, 1)
 	for _, th := range []int{2, 3, 8} {
-		if got := Neighbourhood(x, y, 3, 9, nil, th); got != ref {
+		if got := Neighbourhood(InputSpace(x), MapSpace(y, 3), 9, nil, th); got != ref {
 			t.Errorf("threads %d: %+v, threads 1: %+v", th, got, ref)
 		}
 	}
@@ -225,11 +225,11 @@ func TestNeighbourhoodPanics(t *testing.T) {
 		name string
 		f    func()
 	}{
-		{"k too big", func() { Neighbourhood(x, y, 2, 3, nil, 1) }},
-		{"k zero", func() { Neighbourhood(x, y, 2, 0, nil, 1) }},
-		{"map size", func() { Neighbourhood(x, y[:10], 2, 1, nil, 1) }},
-		{"row out of range", func() { Neighbourhood(x, y, 2, 1, []int32{6}, 1) }},
-		{"empty sample", func() { Neighbourhood(x, y, 2, 1, []int32{}, 1) }},
+		{"k too big", func() { Neighbourhood(InputSpace(x), MapSpace(y, 2), 3, nil, 1) }},
+		{"k zero", func() { Neighbourhood(InputSpace(x), MapSpace(y, 2), 0, nil, 1) }},
+		{"map size", func() { Neighbourhood(InputSpace(x), MapSpace(y[:10], 2), 1, nil, 1) }},
+		{"row out of range", func() { Neighbourhood(InputSpace(x), MapSpace(y, 2), 1, []int32{6}, 1) }},
+		{"empty sample", func() { Neighbourhood(InputSpace(x), MapSpace(y, 2), 1, []int32{}, 1) }},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -259,7 +259,7 @@ func TestLabelAccuracyHandWorked(t *testing.T) {
 	for _, p := range pos {
 		mapY = append(mapY, p, 0)
 	}
-	x := ingest.Matrix{N: 7, D: 1, Data: []float32{0, 1, 2, 3, 10, 11, 12}}
+	x := core.Matrix{N: 7, D: 1, Data: []float32{0, 1, 2, 3, 10, 11, 12}}
 	tests := []struct {
 		k      int
 		sample []int32
@@ -327,15 +327,15 @@ func BenchmarkNeighbourhood100kSample100(b *testing.B) {
 	}
 	sample := Sample(x.N, 100, 1)
 	for b.Loop() {
-		Neighbourhood(x, y, 2, 30, sample, 0)
+		Neighbourhood(InputSpace(x), MapSpace(y, 2), 30, sample, 2)
 	}
 }
 
 func ExampleNeighbourhood() {
 	// Six points on a line; the map swaps rows 2 and 3.
-	x := ingest.Matrix{N: 6, D: 1, Data: []float32{0, 1, 3, 7, 12, 20}}
+	x := core.Matrix{N: 6, D: 1, Data: []float32{0, 1, 3, 7, 12, 20}}
 	y := []float64{0, 0, 1, 0, 7, 0, 3, 0, 12, 0, 20, 0}
-	s := Neighbourhood(x, y, 2, 2, nil, 1)
+	s := Neighbourhood(InputSpace(x), MapSpace(y, 2), 2, nil, 1)
 	fmt.Printf("T=%.4f C=%.4f P=%.4f\n", s.Trustworthiness, s.Continuity, s.Preservation)
 	// Output: T=0.6667 C=0.6667 P=0.3333
 }
@@ -354,4 +354,44 @@ func ExampleSample() {
 	s := Sample(1_000_000, 5, 1)
 	fmt.Println(len(s), slices.IsSorted(s))
 	// Output: 5 true
+}
+
+// plainSpace hides the block fast path of the Space it wraps, so that the scores
+// see only the Space interface, as they would for a Space of another metric.
+type plainSpace struct{ Space }
+
+// The four-row distance pass of InputSpace gives DistRow's bits, and a Space
+// reached only through the interface gives the same scores (common practice:
+// the fast path is an implementation detail).
+func TestInputSpaceFastPath(t *testing.T) {
+	x := randomMatrix(300, 7, 11)
+	in := InputSpace(x)
+	rows := []int32{5, 0, 299, 5, 17}
+	outs := make([][]float64, len(rows))
+	for r := range outs {
+		outs[r] = make([]float64, x.N)
+	}
+	distRows(in, rows, outs)
+	one := make([]float64, x.N)
+	for r, i := range rows {
+		in.DistRow(int(i), one)
+		if !slices.Equal(one, outs[r]) {
+			t.Fatalf("row %d: DistRow and the four-row pass differ", i)
+		}
+	}
+	y := make([]float64, 2*x.N)
+	for i := range x.N {
+		y[2*i], y[2*i+1] = float64(x.Data[i*7]), float64(x.Data[i*7+3])
+	}
+	labels := make([]string, x.N)
+	for i := range labels {
+		labels[i] = fmt.Sprint(i % 3)
+	}
+	sample := Sample(x.N, 40, 3)
+	if a, b := Neighbourhood(in, MapSpace(y, 2), 8, sample, 2), Neighbourhood(plainSpace{in}, MapSpace(y, 2), 8, sample, 2); a != b {
+		t.Errorf("fast path %+v, interface only %+v", a, b)
+	}
+	if a, b := LabelAccuracy(in, labels, 5, sample, 2), LabelAccuracy(plainSpace{in}, labels, 5, sample, 2); a != b {
+		t.Errorf("label accuracy: fast path %v, interface only %v", a, b)
+	}
 }
