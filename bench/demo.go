@@ -1,17 +1,13 @@
-// Package bench holds nightjar's datasets (the built-in synthetic survey and the
-// MNIST digits read from IDX files), the quality scores of a map (trustworthiness,
-// continuity, neighbourhood preservation, k-NN label accuracy) and sample drawing
-// for them. Pictures of maps are drawn by the sub-package bench/figure.
 package bench
 
 import (
 	"fmt"
 	"math"
 	"math/rand/v2"
-	"runtime"
-	"sync"
 
 	"nightjar/ingest"
+	"nightjar/internal/core"
+	"nightjar/internal/par"
 )
 
 // Demo scenario constants. The latent space has demoLatent axes; the table has
@@ -104,13 +100,15 @@ type demoModel struct {
 //
 // Row order is shuffled; the label column is named "population" (Strings), the
 // id column "id" holds 1..n (Ints), Format is "demo" and Hash is the same
-// fingerprint of the matrix that ingest computes for files. The result is
-// deterministic for (n, seed) and does not depend on the number of CPUs. Memory
+// fingerprint of the matrix that ingest computes for files. The rows are drawn in
+// blocks of 8192, each from its own generator, on up to threads goroutines (below
+// 1 means 1): the result is deterministic for (n, seed) and does not depend on
+// threads. Memory
 // is 200 bytes per row for the features and 24 for the label (strings shared)
 // and id; a million rows take about a second on two cores. Group shares are exact
 // up to rounding (largest remainder), so with n below a few hundred the rare
 // group may be empty. Demo panics if n < 1.
-func Demo(n int, seed uint64) *ingest.Table {
+func Demo(n int, seed uint64, threads int) *ingest.Table {
 	if n < 1 {
 		panic(fmt.Sprintf("bench.Demo: n = %d, need n ≥ 1", n))
 	}
@@ -130,36 +128,22 @@ func Demo(n int, seed uint64) *ingest.Table {
 	data := make([]float32, n*DemoFeatures)
 	labels := make([]string, n)
 	ids := make([]int64, n)
-	blocks := (n + demoBlock - 1) / demoBlock
-	workers := min(runtime.GOMAXPROCS(0), blocks)
-	next := make(chan int, blocks)
-	for b := range blocks {
-		next <- b
-	}
-	close(next)
-	var wg sync.WaitGroup
-	for range workers {
-		wg.Go(func() {
-			for b := range next {
-				lo, hi := b*demoBlock, min(n, (b+1)*demoBlock)
-				// One generator per block, seeded by (seed, block): the rows do not
-				// depend on which goroutine takes the block.
-				rng := rand.New(rand.NewPCG(seed^0x9e3779b97f4a7c15, uint64(b)))
-				for i := lo; i < hi; i++ {
-					m.row(int(pop[i]), rng, data[i*DemoFeatures:(i+1)*DemoFeatures])
-					labels[i] = demoPops[pop[i]].name
-					ids[i] = int64(i + 1)
-				}
-			}
-		})
-	}
-	wg.Wait()
+	par.Blocks(n, demoBlock, threads, func(_, b, lo, hi int) {
+		// One generator per block, seeded by (seed, block): the rows do not
+		// depend on which goroutine takes the block.
+		rng := rand.New(rand.NewPCG(seed^0x9e3779b97f4a7c15, uint64(b)))
+		for i := lo; i < hi; i++ {
+			m.row(int(pop[i]), rng, data[i*DemoFeatures:(i+1)*DemoFeatures])
+			labels[i] = demoPops[pop[i]].name
+			ids[i] = int64(i + 1)
+		}
+	})
 
 	features := make([]string, DemoFeatures)
 	for f := range features {
 		features[f] = fmt.Sprintf("f%02d", f+1)
 	}
-	mat := ingest.Matrix{N: n, D: DemoFeatures, Data: data}
+	mat := core.Matrix{N: n, D: DemoFeatures, Data: data}
 	return &ingest.Table{
 		Matrix:   mat,
 		Features: features,
@@ -195,7 +179,8 @@ func demoCounts(n int) []int {
 	return counts
 }
 
-// newDemoModel draws the scenario's geometry from the seed.
+// newDemoModel draws the scenario's geometry from the seed: the blobs, the
+// lineages and the feature map, in that order from one generator.
 func newDemoModel(seed uint64) *demoModel {
 	rng := rand.New(rand.NewPCG(seed, 0x67656f6d65747279)) // "geometry"
 	np := len(demoPops)
@@ -207,32 +192,48 @@ func newDemoModel(seed uint64) *demoModel {
 		p1:     make([][demoLatent]float64, np),
 		mix:    make([]float64, DemoFeatures*demoLatent),
 	}
-	gauss := func(scale float64) (v [demoLatent]float64) {
-		for l := range v {
-			v[l] = scale * rng.NormFloat64()
-		}
-		return v
+	m.placeBlobs(rng)
+	m.placeLineages(rng)
+	m.drawMix(rng)
+	for f := range m.noise {
+		m.noise[f] = 0.12 * math.Pow(0.97, float64(f))
 	}
-	unit := func() [demoLatent]float64 {
-		v := gauss(1)
-		s := math.Sqrt(dot(v, v))
-		for l := range v {
-			v[l] /= s
-		}
-		return v
-	}
-	add := func(a, b [demoLatent]float64, s float64) (v [demoLatent]float64) {
-		for l := range v {
-			v[l] = a[l] + s*b[l]
-		}
-		return v
-	}
+	return m
+}
 
+// gauss returns a latent vector of independent normal values times scale.
+func gauss(rng *rand.Rand, scale float64) (v [demoLatent]float64) {
+	for l := range v {
+		v[l] = scale * rng.NormFloat64()
+	}
+	return v
+}
+
+// unit returns a random direction of the latent space.
+func unit(rng *rand.Rand) [demoLatent]float64 {
+	v := gauss(rng, 1)
+	s := math.Sqrt(dot(v, v))
+	for l := range v {
+		v[l] /= s
+	}
+	return v
+}
+
+// add returns a + s·b.
+func add(a, b [demoLatent]float64, s float64) (v [demoLatent]float64) {
+	for l := range v {
+		v[l] = a[l] + s*b[l]
+	}
+	return v
+}
+
+// placeBlobs draws the centre and per-axis spreads of every blob population.
+func (m *demoModel) placeBlobs(rng *rand.Rand) {
 	for p, d := range demoPops {
 		if d.lineage >= 0 {
 			continue
 		}
-		m.centre[p] = gauss(9)
+		m.centre[p] = gauss(rng, 9)
 		for l := range m.axis[p] {
 			// anisotropic: each axis between 0.4 and 1.6 times the typical spread
 			m.axis[p][l] = d.spread * (0.4 + 1.2*rng.Float64())
@@ -240,15 +241,18 @@ func newDemoModel(seed uint64) *demoModel {
 	}
 	// The rare population sits 60 latent units out along a fresh direction,
 	// beyond every other group (their centres are about 9·√12 ≈ 31 from the origin).
-	m.centre[demoRare] = add([demoLatent]float64{}, unit(), 60)
+	m.centre[demoRare] = add([demoLatent]float64{}, unit(rng), 60)
+}
 
-	// Lineages: root → split (stem), split → two tips (arms). Each segment is
-	// bent by a control point pushed sideways from its midpoint.
+// placeLineages draws the two lineages: root → split (stem), split → two tips
+// (arms). Each segment is bent by a control point pushed sideways from its
+// midpoint.
+func (m *demoModel) placeLineages(rng *rand.Rand) {
 	for lin := 0; lin < 2; lin++ {
-		root := gauss(7)
-		split := add(root, unit(), 16)
-		dirA := unit()
-		dirB := unit()
+		root := gauss(rng, 7)
+		split := add(root, unit(rng), 16)
+		dirA := unit(rng)
+		dirB := unit(rng)
 		// make the arms leave the split point in clearly different directions
 		dirB = add(dirB, dirA, -dot(dirA, dirB))
 		nb := math.Sqrt(dot(dirB, dirB))
@@ -269,14 +273,16 @@ func newDemoModel(seed uint64) *demoModel {
 				mid[l] /= 2
 			}
 			m.p0[p], m.p1[p] = from, to
-			m.c[p] = add(mid, unit(), 5)
+			m.c[p] = add(mid, unit(rng), 5)
 		}
 	}
+}
 
-	// Feature map: identity plus random mixing (strength 0.35, fading over the
-	// tail features), columns made orthonormal by Gram–Schmidt, then scaled by
-	// 0.86^l per latent axis so the features' variances decay like principal
-	// components.
+// drawMix draws the feature map: identity plus random mixing (strength 0.35,
+// fading over the tail features), columns made orthonormal by Gram–Schmidt, then
+// scaled by 0.86^l per latent axis so the features' variances decay like
+// principal components.
+func (m *demoModel) drawMix(rng *rand.Rand) {
 	for f := range DemoFeatures {
 		for l := range demoLatent {
 			v := 0.35 * rng.NormFloat64() / math.Sqrt(DemoFeatures)
@@ -309,10 +315,6 @@ func newDemoModel(seed uint64) *demoModel {
 			m.mix[f*demoLatent+l] *= scale
 		}
 	}
-	for f := range m.noise {
-		m.noise[f] = 0.12 * math.Pow(0.97, float64(f))
-	}
-	return m
 }
 
 func dot(a, b [demoLatent]float64) float64 {

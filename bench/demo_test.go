@@ -5,7 +5,6 @@ import (
 	"math"
 	"os"
 	"path/filepath"
-	"runtime"
 	"slices"
 	"testing"
 
@@ -19,7 +18,7 @@ func TestDemoShape(t *testing.T) {
 	}{{1, 1}, {1000, 2}, {20000, 3}}
 	for _, tc := range tests {
 		t.Run(fmt.Sprint(tc.n), func(t *testing.T) {
-			tb := Demo(tc.n, tc.seed)
+			tb := Demo(tc.n, tc.seed, 2)
 			if tb.N != tc.n || tb.D != DemoFeatures || len(tb.Data) != tc.n*DemoFeatures {
 				t.Fatalf("matrix %d×%d with %d values, want %d×%d", tb.N, tb.D, len(tb.Data), tc.n, DemoFeatures)
 			}
@@ -73,20 +72,20 @@ func TestDemoCounts(t *testing.T) {
 }
 
 func TestDemoDeterministic(t *testing.T) {
-	a := Demo(30000, 11)
-	prev := runtime.GOMAXPROCS(1)
-	b := Demo(30000, 11)
-	runtime.GOMAXPROCS(prev)
-	c := Demo(30000, 12)
-	if !slices.Equal(a.Data, b.Data) || !slices.Equal(a.Label.Strings, b.Label.Strings) {
-		t.Fatal("same (n, seed) gave different tables with 1 and many threads")
+	a := Demo(30000, 11, 3)
+	for _, threads := range []int{1, 2, 0} {
+		b := Demo(30000, 11, threads)
+		if !slices.Equal(a.Data, b.Data) || !slices.Equal(a.Label.Strings, b.Label.Strings) {
+			t.Fatalf("same (n, seed) gave different tables with %d and 3 threads", threads)
+		}
 	}
+	c := Demo(30000, 12, 2)
 	if slices.Equal(a.Data, c.Data) {
 		t.Fatal("different seeds gave the same table")
 	}
 	// A prefix of a bigger table is not promised, but the first rows of the same
 	// n must not depend on anything else: draw again and compare.
-	d := Demo(30000, 11)
+	d := Demo(30000, 11, 2)
 	if !slices.Equal(a.Data, d.Data) {
 		t.Fatal("two calls differ")
 	}
@@ -94,7 +93,7 @@ func TestDemoDeterministic(t *testing.T) {
 
 // The features are PC-like: variance falls from the first features to the last.
 func TestDemoVarianceDecays(t *testing.T) {
-	tb := Demo(20000, 5)
+	tb := Demo(20000, 5, 2)
 	v := make([]float64, DemoFeatures)
 	mean := make([]float64, DemoFeatures)
 	for i := range tb.N {
@@ -126,7 +125,7 @@ func TestDemoVarianceDecays(t *testing.T) {
 // The rare group is an island: every rare row is closer to all other rare rows
 // than to any row of another group. The stem and arms of a lineage touch.
 func TestDemoGeometry(t *testing.T) {
-	tb := Demo(20000, 8)
+	tb := Demo(20000, 8, 2)
 	x := tb.Matrix
 	byLabel := map[string][]int{}
 	for i, l := range tb.Label.Strings {
@@ -189,12 +188,12 @@ func TestDemoGeometry(t *testing.T) {
 
 func BenchmarkDemoMillion(b *testing.B) {
 	for b.Loop() {
-		Demo(1_000_000, 1)
+		Demo(1_000_000, 1, 2)
 	}
 }
 
 func ExampleDemo() {
-	tb := Demo(10000, 42)
+	tb := Demo(10000, 42, 2)
 	fmt.Println(tb.N, tb.D, tb.Features[0], tb.Label.Name, tb.ID.Ints[0])
 	// Output: 10000 50 f01 population 1
 }
@@ -203,7 +202,7 @@ func ExampleDemo() {
 // reader, and its Hash equals the fingerprint ingest computes when reading the
 // file (the definition on ingest.Table.Hash).
 func TestDemoRoundTripThroughIngest(t *testing.T) {
-	tb := Demo(3000, 4)
+	tb := Demo(3000, 4, 2)
 	path := filepath.Join(t.TempDir(), "demo.parquet")
 	f, err := os.Create(path)
 	if err != nil {

@@ -13,7 +13,10 @@ import (
 	"strconv"
 	"strings"
 
+	"golang.org/x/mod/module"
+
 	"nightjar/ingest"
+	"nightjar/internal/core"
 )
 
 // ErrNotIDX is wrapped by the errors of ReadIDX for input that is not an IDX
@@ -159,24 +162,9 @@ func MNIST(dir string, n int) (*ingest.Table, error) {
 		if n > 0 && rows >= n {
 			break
 		}
-		imPath, err := findIDX(dir, p.images)
+		idims, img, lab, err := readMNISTPart(dir, p.images, p.labels)
 		if err != nil {
 			return nil, err
-		}
-		lbPath, err := findIDX(dir, p.labels)
-		if err != nil {
-			return nil, err
-		}
-		idims, img, err := OpenIDX(imPath)
-		if err != nil {
-			return nil, err
-		}
-		ldims, lab, err := OpenIDX(lbPath)
-		if err != nil {
-			return nil, err
-		}
-		if len(idims) != 3 || len(ldims) != 1 || idims[0] != ldims[0] {
-			return nil, fmt.Errorf("reading MNIST in %s: images have sizes %v and labels %v, want [count rows cols] and [count]", dir, idims, ldims)
 		}
 		if pd := idims[1] * idims[2]; d == 0 {
 			d = pd
@@ -214,7 +202,7 @@ func MNIST(dir string, n int) (*ingest.Table, error) {
 	for i := range ids {
 		ids[i] = int64(i + 1)
 	}
-	mat := ingest.Matrix{N: rows, D: d, Data: pixels}
+	mat := core.Matrix{N: rows, D: d, Data: pixels}
 	return &ingest.Table{
 		Matrix:   mat,
 		Features: features,
@@ -223,6 +211,31 @@ func MNIST(dir string, n int) (*ingest.Table, error) {
 		Hash:     ingest.Fingerprint(mat),
 		Format:   "idx",
 	}, nil
+}
+
+// readMNISTPart reads the IDX files of images and labels in dir and checks that
+// they hold the same number of two-dimensional images and labels.
+func readMNISTPart(dir, images, labels string) (idims []int, img, lab []byte, err error) {
+	imPath, err := findIDX(dir, images)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	lbPath, err := findIDX(dir, labels)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	idims, img, err = OpenIDX(imPath)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	ldims, lab, err := OpenIDX(lbPath)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	if len(idims) != 3 || len(ldims) != 1 || idims[0] != ldims[0] {
+		return nil, nil, nil, fmt.Errorf("reading MNIST in %s: images have sizes %v and labels %v, want [count rows cols] and [count]", dir, idims, ldims)
+	}
+	return idims, img, lab, nil
 }
 
 func findIDX(dir, name string) (string, error) {
@@ -256,7 +269,10 @@ func MNISTDir() (string, error) {
 		return dir, err == nil
 	}
 	for _, cache := range modCaches() {
-		root := filepath.Join(cache, filepath.FromSlash(escapeModulePath(mnistModule))+"@"+mnistVersion)
+		root, err := moduleDir(cache, mnistModule, mnistVersion)
+		if err != nil {
+			return "", fmt.Errorf("locating MNIST: %w", err)
+		}
 		if dir, ok := check(root); ok {
 			return dir, nil
 		}
@@ -292,17 +308,18 @@ func modCaches() []string {
 	return out
 }
 
-// escapeModulePath applies the module cache's case encoding: every upper-case
-// letter becomes '!' followed by its lower-case form (Go modules reference,
-// "Module cache"; GoMNIST → !go!m!n!i!s!t).
-func escapeModulePath(p string) string {
-	var b strings.Builder
-	for _, r := range p {
-		if 'A' <= r && r <= 'Z' {
-			b.WriteByte('!')
-			r += 'a' - 'A'
-		}
-		b.WriteRune(r)
+// moduleDir returns the folder of the module path at version in the module cache
+// rooted at cache, with path and version escaped as the cache spells them (Go
+// modules reference, "Module cache": an upper-case letter becomes '!' and its
+// lower-case form, so GoMNIST is stored as !go!m!n!i!s!t).
+func moduleDir(cache, path, version string) (string, error) {
+	p, err := module.EscapePath(path)
+	if err != nil {
+		return "", err
 	}
-	return b.String()
+	v, err := module.EscapeVersion(version)
+	if err != nil {
+		return "", err
+	}
+	return filepath.Join(cache, filepath.FromSlash(p)+"@"+v), nil
 }

