@@ -28,7 +28,7 @@ type Result struct {
 	KL       float64
 	IterSecs float64 // optimiser seconds per iteration
 	AffSecs  float64 // affinity phase
-	Centroid float64 // CentroidRank of the map (labelled data)
+	Centroid float64 // score.CentroidRank of the map (labelled data)
 	Err      string  // non-empty when the run failed
 }
 
