@@ -440,7 +440,7 @@ func ipcStreamCheck(f *os.File) error {
 		if _, err := f.ReadAt(meta, pos+start); err != nil && err != io.EOF {
 			return err
 		}
-		body, tag, n2, err := messageInfo(meta, k == 0)
+		body, tag, length, err := messageInfo(meta, k == 0)
 		if err != nil {
 			return fault("message %d: %w", k, err)
 		}
@@ -449,8 +449,8 @@ func ipcStreamCheck(f *os.File) error {
 			return fault("message %d announces a body of %d bytes, %d remain in the file", k, body, size-pos)
 		}
 		pos += body
-		if tag == headerRecordBatch && n2 <= math.MaxInt64-rows {
-			rows += n2
+		if tag == headerRecordBatch && length <= math.MaxInt64-rows {
+			rows += length
 		}
 	}
 }
