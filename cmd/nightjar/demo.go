@@ -1,55 +1,55 @@
 package main
 
 import (
+	"context"
 	"fmt"
 	"io"
 	"os"
-	"path/filepath"
 
-	"nightjar/bench"
-	"nightjar/checkpoint"
-	"nightjar/ingest"
+	"nightjar"
 )
 
-func runDemo(args []string, stdout, stderr io.Writer) error {
-	s := defaultSettings()
-	var r runtimeOpts
+func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	s := nightjar.DefaultSettings()
+	r := defaultRuntime()
+	var quiet bool
 	fs := newFlags("demo", "generate the built-in fictional survey (invented data) and map it like 'embed' would",
 		"nightjar demo --rows 20000 --run demo-run", stderr)
 	rows := fs.Int("rows", 20000, "rows of the fictional survey to generate")
 	dir := fs.String("run", "", "run directory (default: a new ./nightjar-demo, ./nightjar-demo-2, …)")
-	addSettingsFlags(fs, &s)
-	addRuntimeFlags(fs, &r)
+	addSettings(fs, &s, "input", "id", "label", "features", "skip-invalid")
+	addRuntime(fs, &r, &quiet)
 	if _, err := parseFlags(fs, args, 0); err != nil {
 		return err
 	}
 	if *rows < 10 {
 		return usagef("demo: --rows must be at least 10, got %d", *rows)
 	}
-	if err := s.check(); err != nil {
-		return err
-	}
-	if err := r.check(); err != nil {
-		return err
-	}
 	if *dir == "" {
 		*dir = freeDir("nightjar-demo")
 	}
-	run, err := checkpoint.Create(*dir)
+	u := &ui{w: stderr, quiet: quiet}
+	res, err := nightjar.Embed(ctx, nightjar.DemoSource(*rows, s.Seed, r.Threads), *dir, s, r, demoObserver{u})
 	if err != nil {
-		return &usageError{err.Error()}
-	}
-	t := bench.Demo(*rows, s.Seed)
-	input := run.Path("survey.parquet")
-	if err := checkpoint.AtomicWrite(input, func(w io.Writer) error { return ingest.WriteTable(w, t) }); err != nil {
-		return fmt.Errorf("writing the demo table: %w", err)
-	}
-	fmt.Fprintf(stderr, "demo: wrote %d rows × %d features of an invented survey to %s\n", t.N, t.D, input)
-	if s.Input, err = filepath.Abs(input); err != nil {
 		return err
 	}
-	s.ID, s.Label = t.ID.Name, t.Label.Name
-	return continueCreated(run, s, r, stdout, stderr)
+	printResult(stdout, res)
+	return nil
+}
+
+// demoObserver shows the line saying where the demo data went even in a
+// quiet run, as every demo has.
+type demoObserver struct{ *ui }
+
+func (d demoObserver) Note(text string) {
+	if len(text) > 5 && text[:5] == "demo:" {
+		d.ui.mu.Lock()
+		d.ui.closeLocked()
+		fmt.Fprintln(d.ui.w, text)
+		d.ui.mu.Unlock()
+		return
+	}
+	d.ui.Note(text)
 }
 
 // freeDir returns base, or base-2, base-3, … whichever does not exist yet.

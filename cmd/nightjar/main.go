@@ -1,6 +1,7 @@
 // Command nightjar turns a large numeric feature table into a 2-D or 3-D t-SNE
 // map on a CPU-only machine, with checkpoints so an interrupted run resumes where
-// it stopped, and quality scores so the map can be judged.
+// it stopped, and quality scores so the map can be judged. It is the command
+// line of the nightjar library: flags, progress bars, messages and exit codes.
 //
 // Sub-commands:
 //
@@ -12,19 +13,23 @@
 //	nightjar bench  [options]                           accuracy-versus-speed sweeps
 //
 // Exit codes: 0 success; 1 internal failure; 2 bad input or usage; 130 and 143
-// interrupted by SIGINT or SIGTERM after a checkpoint was written.
+// interrupted by SIGINT or SIGTERM (after a checkpoint was written, in the
+// optimiser).
 package main
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"io"
 	"os"
+	"os/signal"
 	"strings"
-)
+	"sync/atomic"
+	"syscall"
 
-// version is the tool version written into manifests and reports.
-const version = "0.1.0"
+	"nightjar"
+)
 
 // Exit codes shared by every sub-command.
 const (
@@ -44,17 +49,9 @@ func usagef(format string, args ...any) error {
 	return &usageError{fmt.Sprintf(format, args...)}
 }
 
-// interrupted is returned when a signal stopped the run after a checkpoint.
-type interrupted struct {
-	code int
-	msg  string
-}
-
-func (e *interrupted) Error() string { return e.msg }
-
 type command struct {
 	name, summary string
-	run           func(args []string, stdout, stderr io.Writer) error
+	run           func(ctx context.Context, args []string, stdout, stderr io.Writer) error
 }
 
 func commands() []command {
@@ -65,12 +62,15 @@ func commands() []command {
 		{"status", "show where a run stands: phase, iteration, KL, time left", runStatus},
 		{"score", "(re)compute quality scores of a finished run", runScore},
 		{"bench", "sweep settings over a dataset and record time, memory and quality", runBench},
-		{"version", "print the version", func([]string, io.Writer, io.Writer) error { fmt.Println("nightjar", version); return nil }},
+		{"version", "print the version", func(_ context.Context, _ []string, stdout, _ io.Writer) error {
+			fmt.Fprintln(stdout, "nightjar", nightjar.Version)
+			return nil
+		}},
 	}
 }
 
 func mainUsage(w io.Writer) {
-	fmt.Fprintf(w, "nightjar %s: t-SNE maps of large feature tables, resumable, with quality scores.\n\n", version)
+	fmt.Fprintf(w, "nightjar %s: t-SNE maps of large feature tables, resumable, with quality scores.\n\n", nightjar.Version)
 	fmt.Fprintln(w, "Usage: nightjar <command> [options]\n\nCommands:")
 	for _, c := range commands() {
 		fmt.Fprintf(w, "  %-8s %s\n", c.name, c.summary)
@@ -80,11 +80,37 @@ func mainUsage(w io.Writer) {
 }
 
 func main() {
-	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
+	ctx, sig, stop := signalContext()
+	code := run(ctx, os.Args[1:], os.Stdout, os.Stderr, sig)
+	stop()
+	os.Exit(code)
 }
 
-// run dispatches to a sub-command and maps its error to an exit code.
-func run(args []string, stdout, stderr io.Writer) int {
+// signalContext returns a context cancelled by the first SIGINT or SIGTERM,
+// a function that tells which signal it was, and a function that stops
+// listening. After the first signal the default handling is restored, so a
+// second one ends the process at once.
+func signalContext() (context.Context, func() syscall.Signal, func()) {
+	ctx, cancel := context.WithCancelCause(context.Background())
+	var got atomic.Int32
+	ch := make(chan os.Signal, 1)
+	signal.Notify(ch, syscall.SIGINT, syscall.SIGTERM)
+	quit := make(chan struct{})
+	go func() {
+		select {
+		case s := <-ch:
+			got.Store(int32(s.(syscall.Signal)))
+			signal.Stop(ch)
+			cancel(fmt.Errorf("%v", s))
+		case <-quit:
+		}
+	}()
+	return ctx, func() syscall.Signal { return syscall.Signal(got.Load()) }, func() { signal.Stop(ch); close(quit) }
+}
+
+// run dispatches to a sub-command and maps its error to an exit code. sig
+// tells which signal, if any, cancelled ctx.
+func run(ctx context.Context, args []string, stdout, stderr io.Writer, sig func() syscall.Signal) int {
 	if len(args) == 0 || args[0] == "help" || args[0] == "-h" || args[0] == "--help" {
 		mainUsage(stdout)
 		if len(args) == 0 {
@@ -94,7 +120,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 	}
 	for _, c := range commands() {
 		if c.name == args[0] {
-			return exitCode(c.run(args[1:], stdout, stderr), stderr)
+			return exitCode(c.run(ctx, args[1:], stdout, stderr), stderr, sig)
 		}
 	}
 	fmt.Fprintf(stderr, "nightjar: unknown command %q; run 'nightjar help' for the list\n", args[0])
@@ -102,21 +128,26 @@ func run(args []string, stdout, stderr io.Writer) int {
 }
 
 // exitCode prints err as one line and returns the exit code it stands for.
-func exitCode(err error, stderr io.Writer) int {
-	if err == nil {
+func exitCode(err error, stderr io.Writer, sig func() syscall.Signal) int {
+	if err == nil || errors.Is(err, errHelp) {
 		return exitOK
 	}
-	if errors.Is(err, errHelp) {
-		return exitOK
-	}
-	var intr *interrupted
-	if errors.As(err, &intr) {
-		fmt.Fprintln(stderr, "nightjar:", intr.msg)
-		return intr.code
+	var stop *nightjar.StoppedError
+	if errors.As(err, &stop) {
+		if stop.Saved {
+			fmt.Fprintf(stderr, "nightjar: stopped at iteration %d after writing a checkpoint; continue with: nightjar resume %s\n", stop.Iteration, stop.Dir)
+		} else {
+			fmt.Fprintf(stderr, "nightjar: interrupted during phase %q; continue with: nightjar resume %s\n", stop.Phase, stop.Dir)
+		}
+		if sig != nil && sig() == syscall.SIGTERM {
+			return exitTerm
+		}
+		return exitInterrupt
 	}
 	msg := strings.ReplaceAll(err.Error(), "\n", " ")
 	fmt.Fprintln(stderr, "nightjar:", msg)
-	if isBadInput(err) {
+	var use *usageError
+	if errors.As(err, &use) || nightjar.IsUserFault(err) {
 		return exitBadInput
 	}
 	return exitInternal

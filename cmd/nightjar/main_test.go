@@ -2,13 +2,13 @@ package main
 
 import (
 	"bytes"
+	"context"
 	"encoding/json"
 	"io"
 	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
-	"slices"
 	"strconv"
 	"strings"
 	"testing"
@@ -39,13 +39,6 @@ func TestMain(m *testing.M) {
 	os.Exit(code)
 }
 
-// runCLI runs the command in-process and returns exit code, stdout and stderr.
-func runCLI(args ...string) (int, string, string) {
-	var out, errb bytes.Buffer
-	code := run(args, &out, &errb)
-	return code, out.String(), errb.String()
-}
-
 // writeDemoTable writes n rows of the invented demo survey as Parquet.
 func writeDemoTable(t *testing.T, dir string, n int) string {
 	t.Helper()
@@ -56,7 +49,7 @@ func writeDemoTable(t *testing.T, dir string, n int) string {
 
 func writeDemoTableSeed(t *testing.T, path string, n int, seed uint64) {
 	t.Helper()
-	tab := bench.Demo(n, seed)
+	tab := bench.Demo(n, seed, 2)
 	if err := checkpoint.AtomicWrite(path, func(w io.Writer) error { return ingest.WriteTable(w, tab) }); err != nil {
 		t.Fatal(err)
 	}
@@ -131,7 +124,7 @@ func TestHelpOnEverySubcommand(t *testing.T) {
 			continue
 		}
 		var out, errb bytes.Buffer
-		code := run([]string{c.name, "--help"}, &out, &errb)
+		code := run(context.Background(), []string{c.name, "--help"}, &out, &errb, nil)
 		if code != 0 || !strings.Contains(errb.String(), "Example:") {
 			t.Errorf("%s --help: exit %d, output %q", c.name, code, errb.String())
 		}
@@ -308,24 +301,6 @@ func TestEmbedAboveExactKL(t *testing.T) {
 	for _, phase := range []string{"read", "neighbours", "affinities", "optimiser", "outputs", "scores"} {
 		if v, ok := mem[phase].(float64); !ok || v <= 0 {
 			t.Errorf("peak memory after %s: %v", phase, mem[phase])
-		}
-	}
-}
-
-// TestIDLikeColumns: the names that draw the row-identifier warning.
-func TestIDLikeColumns(t *testing.T) {
-	cases := []struct {
-		in   []string
-		want []string
-	}{
-		{[]string{"pc_1", "pc_2"}, nil},
-		{[]string{"id", "pc_1"}, []string{"id"}},
-		{[]string{"ID", "Cell_ID", "width", "idle", "__index_level_0__", "Index"}, []string{"ID", "Cell_ID", "__index_level_0__", "Index"}},
-		{[]string{"rowid", "row_id", "row", "grid"}, []string{"rowid", "row_id"}},
-	}
-	for _, c := range cases {
-		if got := idLikeColumns(c.in); !slices.Equal(got, c.want) {
-			t.Errorf("idLikeColumns(%q) = %q, want %q", c.in, got, c.want)
 		}
 	}
 }

@@ -7,6 +7,7 @@ import (
 	"path/filepath"
 	"testing"
 
+	"nightjar"
 	"nightjar/bench"
 	"nightjar/checkpoint"
 	"nightjar/ingest"
@@ -41,7 +42,7 @@ func TestMNISTSample(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	var rep report
+	var rep nightjar.Report
 	if err := json.Unmarshal(b, &rep); err != nil {
 		t.Fatal(err)
 	}

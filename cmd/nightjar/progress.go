@@ -9,7 +9,8 @@ import (
 	"github.com/schollz/progressbar/v3"
 )
 
-// ui prints progress bars and notes on stderr, or only notes when quiet.
+// ui shows a run's progress on stderr: a bar per phase and notes, or only
+// warnings when quiet. It is the command line's nightjar.Observer.
 type ui struct {
 	w     io.Writer
 	quiet bool
@@ -17,24 +18,24 @@ type ui struct {
 	bar   *progressbar.ProgressBar
 }
 
-// note prints one line of information, closing any open bar first. Quiet
+// Note prints one line of information, closing any open bar first. Quiet
 // runs print no notes: errors and the final summary go elsewhere.
-func (u *ui) note(format string, args ...any) {
+func (u *ui) Note(text string) {
 	if u.quiet {
 		return
 	}
 	u.mu.Lock()
 	defer u.mu.Unlock()
 	u.closeLocked()
-	fmt.Fprintf(u.w, format+"\n", args...)
+	fmt.Fprintln(u.w, text)
 }
 
-// warn prints a warning line, even when quiet.
-func (u *ui) warn(format string, args ...any) {
+// Warn prints a warning line, even when quiet.
+func (u *ui) Warn(text string) {
 	u.mu.Lock()
 	defer u.mu.Unlock()
 	u.closeLocked()
-	fmt.Fprintf(u.w, "nightjar: warning: "+format+"\n", args...)
+	fmt.Fprintln(u.w, "nightjar: warning: "+text)
 }
 
 func (u *ui) closeLocked() {
@@ -45,22 +46,22 @@ func (u *ui) closeLocked() {
 	}
 }
 
-// done closes the open bar.
-func (u *ui) done() {
+// Done closes the open bar.
+func (u *ui) Done() {
 	u.mu.Lock()
 	defer u.mu.Unlock()
 	u.closeLocked()
 }
 
-// phase opens a bar for a phase of total steps (−1 when unknown) and returns a
-// callback that reports (done, total). The callback is safe for concurrent use.
-func (u *ui) phase(desc string, total int64) func(done, total int64) {
+// Phase opens a bar for a phase of total steps (−1 when unknown).
+func (u *ui) Phase(desc string, total int64) {
 	if u.quiet {
-		return func(int64, int64) {}
+		return
 	}
 	u.mu.Lock()
+	defer u.mu.Unlock()
 	u.closeLocked()
-	bar := progressbar.NewOptions64(total,
+	u.bar = progressbar.NewOptions64(total,
 		progressbar.OptionSetWriter(u.w),
 		progressbar.OptionSetDescription(desc),
 		progressbar.OptionSetWidth(30),
@@ -70,26 +71,32 @@ func (u *ui) phase(desc string, total int64) func(done, total int64) {
 		progressbar.OptionSetRenderBlankState(true),
 		progressbar.OptionUseANSICodes(false),
 	)
-	u.bar = bar
-	u.mu.Unlock()
-	return func(done, t int64) {
-		u.mu.Lock()
-		defer u.mu.Unlock()
-		if u.bar != bar {
-			return
-		}
-		if t > 0 && t != bar.GetMax64() {
-			bar.ChangeMax64(t)
-		}
-		_ = bar.Set64(done)
-	}
 }
 
-// describe changes the open bar's description (e.g. to show the current KL).
-func (u *ui) describe(desc string) {
+// Progress moves the open bar to done of total.
+func (u *ui) Progress(done, total int64) {
+	if u.quiet {
+		return
+	}
+	u.mu.Lock()
+	defer u.mu.Unlock()
+	if u.bar == nil {
+		return
+	}
+	if total > 0 && total != u.bar.GetMax64() {
+		u.bar.ChangeMax64(total)
+	}
+	_ = u.bar.Set64(done)
+}
+
+// Detail changes the open bar's description (e.g. to show the current KL).
+func (u *ui) Detail(desc string) {
 	u.mu.Lock()
 	defer u.mu.Unlock()
 	if u.bar != nil {
 		u.bar.Describe(desc)
 	}
 }
+
+// DetailWanted spares a quiet run the work of computing details.
+func (u *ui) DetailWanted() bool { return !u.quiet }

@@ -1,19 +1,20 @@
 package main
 
 import (
-	"encoding/json"
+	"context"
 	"fmt"
 	"io"
 
-	"nightjar/checkpoint"
+	"nightjar"
 )
 
-func runResume(args []string, stdout, stderr io.Writer) error {
-	var r runtimeOpts
+func runResume(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	r := defaultRuntime()
+	var quiet bool
 	fs := newFlags("resume", "continue an interrupted run from its newest valid checkpoint, skipping finished phases",
 		"nightjar resume runs/cells --threads 2", stderr)
-	fs.BoolVar(&r.force, "force", false, "continue even if the input file changed since the run began")
-	addRuntimeFlags(fs, &r)
+	fs.BoolVar(&r.Force, "force", false, "continue even if the input file changed since the run began")
+	addRuntime(fs, &r, &quiet)
 	pos, err := parseFlags(fs, args, 1)
 	if err != nil {
 		return err
@@ -21,24 +22,18 @@ func runResume(args []string, stdout, stderr io.Writer) error {
 	if len(pos) != 1 {
 		return usagef("resume: name the run directory (nightjar resume DIR)")
 	}
-	if err := r.check(); err != nil {
+	res, err := nightjar.Resume(ctx, pos[0], r, &ui{w: stderr, quiet: quiet})
+	if err != nil {
 		return err
 	}
-	run, err := checkpoint.Open(pos[0])
-	if err != nil {
-		return &usageError{err.Error()}
-	}
-	m := run.Manifest()
-	if m.Status == checkpoint.StatusFinished {
-		fmt.Fprintf(stdout, "%s is finished (%d iterations, KL %.4f); nothing to resume\n", run.Dir, m.Iteration, m.KL)
+	if res.AlreadyFinished {
+		iters, kl := 0, 0.0
+		if res.Report != nil {
+			iters, kl = res.Report.Optimiser.Iterations, res.Report.Optimiser.KL
+		}
+		fmt.Fprintf(stdout, "%s is finished (%d iterations, KL %.4f); nothing to resume\n", res.Dir, iters, kl)
 		return nil
 	}
-	s := defaultSettings()
-	if err := json.Unmarshal(m.Params, &s); err != nil {
-		return &usageError{fmt.Sprintf("%s: manifest parameters unreadable: %v", run.Dir, err)}
-	}
-	if err := s.check(); err != nil {
-		return err
-	}
-	return execute(run, s, r, true, stdout, stderr)
+	printResult(stdout, res)
+	return nil
 }

@@ -1,32 +1,16 @@
 package main
 
 import (
+	"context"
 	"encoding/json"
 	"fmt"
 	"io"
 	"time"
 
-	"nightjar/checkpoint"
+	"nightjar"
 )
 
-// runStatus prints where a run stands.
-type statusOut struct {
-	Dir             string    `json:"dir"`
-	Phase           string    `json:"phase"`
-	Status          string    `json:"status"`
-	Iteration       int       `json:"iteration"`
-	Iterations      int       `json:"iterations"`
-	KL              float64   `json:"kl"`
-	ElapsedSeconds  float64   `json:"elapsed_seconds"`
-	LeftSeconds     float64   `json:"estimated_seconds_left"`
-	Updated         time.Time `json:"updated"`
-	Input           string    `json:"input"`
-	ToolVersion     string    `json:"tool_version"`
-	ResumeCommand   string    `json:"resume_command,omitempty"`
-	HasEstimateLeft bool      `json:"has_estimate"`
-}
-
-func runStatus(args []string, stdout, stderr io.Writer) error {
+func runStatus(_ context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("status", "show a run's phase, iteration, current KL, time spent and an estimate of the time left",
 		"nightjar status runs/cells --json", stderr)
 	asJSON := fs.Bool("json", false, "print JSON for scripts")
@@ -37,24 +21,9 @@ func runStatus(args []string, stdout, stderr io.Writer) error {
 	if len(pos) != 1 {
 		return usagef("status: name the run directory (nightjar status DIR)")
 	}
-	run, err := checkpoint.Open(pos[0])
+	st, err := nightjar.Status(pos[0])
 	if err != nil {
-		return &usageError{err.Error()}
-	}
-	m := run.Manifest()
-	st := statusOut{Dir: run.Dir, Phase: m.Phase, Status: m.Status, Iteration: m.Iteration, Iterations: m.Iterations,
-		KL: m.KL, ElapsedSeconds: m.Elapsed, Updated: m.Updated, Input: m.Input.Path, ToolVersion: m.Version}
-	if m.Status == checkpoint.StatusRunning {
-		// The manifest is written at phase changes and checkpoints; a run
-		// that is still going has worked since its last update too.
-		st.ElapsedSeconds += time.Since(m.Updated).Seconds()
-	}
-	if m.Status != checkpoint.StatusFinished && m.SecondsPerIteration > 0 && m.Iterations > m.Iteration {
-		st.LeftSeconds = m.SecondsPerIteration * float64(m.Iterations-m.Iteration)
-		st.HasEstimateLeft = true
-	}
-	if m.Status == checkpoint.StatusInterrupted || m.Status == checkpoint.StatusFailed {
-		st.ResumeCommand = "nightjar resume " + run.Dir
+		return err
 	}
 	if *asJSON {
 		enc := json.NewEncoder(stdout)
@@ -73,8 +42,8 @@ func runStatus(args []string, stdout, stderr io.Writer) error {
 	if st.ResumeCommand != "" {
 		fmt.Fprintf(stdout, "continue:   %s\n", st.ResumeCommand)
 	}
-	if m.Status == checkpoint.StatusRunning {
-		fmt.Fprintf(stdout, "note:       if no nightjar process is working on this run any more, it was killed; continue it with: nightjar resume %s\n", run.Dir)
+	if st.Status == nightjar.StatusRunning {
+		fmt.Fprintf(stdout, "note:       if no nightjar process is working on this run any more, it was killed; continue it with: nightjar resume %s\n", st.Dir)
 	}
 	return nil
 }

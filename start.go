@@ -1,4 +1,4 @@
-package main
+package nightjar
 
 import (
 	"fmt"
@@ -7,11 +7,10 @@ import (
 	"time"
 
 	"nightjar/gradient"
-	"nightjar/ingest"
 	"nightjar/knn"
 )
 
-// startStream separates the subsample draw from the other uses of --seed.
+// startStream separates the subsample draw from the other uses of the seed.
 const startStream = 0x5ab5a3
 
 // subsampleStart maps StartRows random rows first and places every other row
@@ -25,15 +24,17 @@ const startStream = 0x5ab5a3
 // It is deterministic for a seed, and so a resumed run that has no state yet
 // recomputes the same start. A stop during it stops at once (nothing is
 // saved; the start is recomputed on resume).
-func (j *job) subsampleStart(P gradient.Affinities, threads int) ([]float64, error) {
-	x, d := j.table.Matrix, j.s.Dims
+func (j *job) subsampleStart(P CSR) ([]float64, error) {
+	x, d, threads := j.table.Matrix, j.s.Dims, j.rt.Threads
 	n := x.N
 	m := min(n, j.s.StartRows)
 	t0 := time.Now()
+	// rand.Perm's stream is kept (not par.Sample's) so that maps made
+	// with this start keep their bits.
 	rng := rand.New(rand.NewPCG(j.s.Seed, startStream))
 	rows := rng.Perm(n)[:m]
 	slices.Sort(rows)
-	sub := ingest.Matrix{N: m, D: x.D, Data: make([]float32, 0, m*x.D)}
+	sub := Matrix{N: m, D: x.D, Data: make([]float32, 0, m*x.D)}
 	for _, i := range rows {
 		sub.Data = append(sub.Data, x.Row(i)...)
 	}
@@ -41,16 +42,11 @@ func (j *job) subsampleStart(P gradient.Affinities, threads int) ([]float64, err
 	perp := min(j.s.Perplexity, float64(m-1)/3)
 	k := knn.Neighbours(perp, m)
 	metric, _ := knn.ParseMetric(j.s.Metric)
-	opt := knn.Options{Threads: threads, Metric: metric}
-	var g *knn.Graph
-	var err error
+	method := knn.ByDescent
 	if m <= knn.ExactLimit/4 {
-		g, err = knn.Exact(sub, k, opt)
-	} else {
-		ao := knn.DefaultApprox(m, k)
-		ao.Options, ao.Seed = opt, j.s.Seed
-		g, _, err = knn.Descent(sub, k, ao)
+		method = knn.ByExact
 	}
+	g, _, err := knn.Build(sub, k, method, knn.BuildOptions{Options: knn.Options{Threads: threads, Metric: metric}, Seed: j.s.Seed})
 	if err != nil {
 		return nil, fmt.Errorf("subsample start: %w", err)
 	}
@@ -58,7 +54,7 @@ func (j *job) subsampleStart(P gradient.Affinities, threads int) ([]float64, err
 	if err != nil {
 		return nil, fmt.Errorf("subsample start: %w", err)
 	}
-	y0, err := initialMap(sub, d)
+	y0, err := initialMap(sub, d, threads)
 	if err != nil {
 		return nil, err
 	}
@@ -66,22 +62,24 @@ func (j *job) subsampleStart(P gradient.Affinities, threads int) ([]float64, err
 	if err != nil {
 		return nil, err
 	}
-	o, err := gradient.New(toAffinities(Psub), y0, params)
+	o, err := gradient.New(*Psub, y0, params)
 	if err != nil {
 		return nil, fmt.Errorf("subsample start: %w", err)
 	}
-	bar := j.ui.phase(fmt.Sprintf("start: mapping %d sampled rows", m), int64(params.Iterations))
+	bar := phaseBar(j.obs, fmt.Sprintf("start: mapping %d sampled rows", m), int64(params.Iterations))
 	for !o.Done() {
 		if err := o.Step(); err != nil {
 			return nil, fmt.Errorf("subsample start: %w", err)
 		}
 		bar(int64(o.Iteration()), int64(params.Iterations))
 	}
-	j.ui.done()
+	j.obs.Done()
 	y := placeAround(P, rows, o.Y(), d)
 	gradient.InitScale(y, d, 1e-4)
+	j.obs.Note(fmt.Sprintf("start: %d sampled rows mapped, the other %d placed among their neighbours, %.1fs", m, n-m, time.Since(t0).Seconds()))
+	j.mu.Lock()
 	j.rep.Phases["start_subsample"] = time.Since(t0).Seconds()
-	j.ui.note("start: %d sampled rows mapped, the other %d placed among their neighbours, %.1fs", m, n-m, time.Since(t0).Seconds())
+	j.mu.Unlock()
 	return y, nil
 }
 
@@ -90,7 +88,7 @@ func (j *job) subsampleStart(P gradient.Affinities, threads int) ([]float64, err
 // pass (passes are Jacobi-style, so the result does not depend on the order
 // of rows). Rows that no pass reaches (a component of P without a sampled
 // row) go to the mean of the sampled rows.
-func placeAround(P gradient.Affinities, rows []int, ysub []float64, d int) []float64 {
+func placeAround(P CSR, rows []int, ysub []float64, d int) []float64 {
 	n := P.N
 	y := make([]float64, n*d)
 	placed := make([]bool, n)

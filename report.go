@@ -1,22 +1,26 @@
-package main
+package nightjar
 
 import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"os"
 	"runtime"
 	"syscall"
 
 	"nightjar/checkpoint"
 )
 
-// caution is printed after every run and written into every report.
-const caution = "A t-SNE map keeps local neighbourhoods, not global geometry: the sizes of clusters " +
+// Caution is printed after every run and written into every report and map.
+const Caution = "A t-SNE map keeps local neighbourhoods, not global geometry: the sizes of clusters " +
 	"and the distances between clusters carry little meaning, and apparent gaps or sub-groups can be artefacts " +
 	"of perplexity and run length. Confirm any finding with the original data."
 
-// report is report.json: what was run, how long it took, how good the map is.
-type report struct {
+// Version is the tool version written into manifests and reports.
+const Version = "0.1.0"
+
+// Report is report.json: what was run, how long it took, how good the map is.
+type Report struct {
 	Tool       string   `json:"tool"`
 	Version    string   `json:"version"`
 	Input      string   `json:"input"`
@@ -24,8 +28,8 @@ type report struct {
 	Rows       int      `json:"rows"`
 	Features   int      `json:"features"`
 	Skipped    int64    `json:"skipped_rows"`
-	Reduced    *reduced `json:"reduced,omitempty"`
-	Parameters settings `json:"parameters"`
+	Reduced    *Reduced `json:"reduced,omitempty"`
+	Parameters Settings `json:"parameters"`
 	Threads    int      `json:"threads"`
 	Cores      int      `json:"cores"`
 	GoVersion  string   `json:"go_version"`
@@ -52,7 +56,7 @@ type report struct {
 		Repulsion    string  `json:"repulsion"`
 		LearningRate float64 `json:"learning_rate"`
 	} `json:"optimiser"`
-	Quality         *quality           `json:"quality,omitempty"`
+	Quality         *Quality           `json:"quality,omitempty"`
 	Phases          map[string]float64 `json:"phase_seconds"`
 	PeakMemoryBytes int64              `json:"peak_memory_bytes"`
 	// PhaseMemory is the process's peak resident memory at the end of each
@@ -63,13 +67,34 @@ type report struct {
 	Caution      string           `json:"caution"`
 }
 
-func newReport(s settings, r runtimeOpts) report {
-	return report{Tool: "nightjar", Version: version, Input: s.Input, Parameters: s, Threads: r.Threads,
-		Cores: runtime.NumCPU(), GoVersion: runtime.Version(), Phases: map[string]float64{}, PhaseMemory: map[string]int64{}, Caution: caution}
+// Reduced describes the streamed PCA of Settings.Reduce: the map and the
+// quality scores then work in the space of the first To components.
+type Reduced struct {
+	From     int       `json:"from_features"`
+	To       int       `json:"to_components"`
+	Variance []float64 `json:"component_variances"`
+}
+
+func newReport(s Settings, rt Runtime) Report {
+	return Report{Tool: "nightjar", Version: Version, Input: s.Input, Parameters: s, Threads: rt.Threads,
+		Cores: runtime.NumCPU(), GoVersion: runtime.Version(), Phases: map[string]float64{}, PhaseMemory: map[string]int64{}, Caution: Caution}
+}
+
+// ReadReport reads a report.json.
+func ReadReport(path string) (*Report, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, err
+	}
+	var rep Report
+	if err := json.Unmarshal(b, &rep); err != nil {
+		return nil, fmt.Errorf("reading %s: %w", path, err)
+	}
+	return &rep, nil
 }
 
 // writeReport writes rep as indented JSON, atomically.
-func writeReport(path string, rep *report) error {
+func writeReport(path string, rep *Report) error {
 	b, err := json.MarshalIndent(rep, "", "  ")
 	if err != nil {
 		return fmt.Errorf("encoding report: %w", err)
@@ -89,12 +114,4 @@ func peakMemory() int64 {
 		return 0
 	}
 	return ru.Maxrss * 1024
-}
-
-// reduced describes the streamed PCA of --reduce: the map and the quality
-// scores then work in the space of the first To components.
-type reduced struct {
-	From     int       `json:"from_features"`
-	To       int       `json:"to_components"`
-	Variance []float64 `json:"component_variances"`
 }

@@ -1,4 +1,4 @@
-package main
+package nightjar
 
 import (
 	"fmt"
@@ -15,7 +15,7 @@ import (
 // real map of real size. Set NIGHTJAR_BENCH_RUN to the run directory, e.g.
 //
 //	nightjar demo --rows 1000000 --run /tmp/demo1M
-//	NIGHTJAR_BENCH_RUN=/tmp/demo1M go test ./cmd/nightjar -run XXX -bench SavedRun -benchtime 5x -count 3
+//	NIGHTJAR_BENCH_RUN=/tmp/demo1M go test . -run XXX -bench SavedRun -benchtime 5x -count 3
 //
 // Without it there is nothing to time and the benchmark says so.
 func BenchmarkSavedRun(b *testing.B) {
@@ -31,7 +31,7 @@ func BenchmarkSavedRun(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	shape, err := int64s(secs, "shape")
+	shape, err := checkpoint.SectionValues[int64](secs, "shape")
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -53,7 +53,8 @@ func BenchmarkSavedRun(b *testing.B) {
 		b.Run(fmt.Sprintf("N=%d/%v", n, m), func(b *testing.B) {
 			params := gradient.DefaultParams(n)
 			params.Iterations, params.EarlyIterations, params.Method = 1<<30, 0, m
-			o, err := gradient.New(toAffinities(P), st.Y, params)
+			params.Threads = 2
+			o, err := gradient.New(*P, st.Y, params)
 			if err != nil {
 				b.Fatal(err)
 			}

@@ -1,0 +1,45 @@
+package nightjar_test
+
+import (
+	"context"
+	"fmt"
+	"math/rand/v2"
+	"os"
+
+	"nightjar"
+)
+
+// Example maps an in-memory matrix: 300 rows of 10 features around three
+// centres (invented data), and checks that the map keeps the groups apart.
+func Example() {
+	rng := rand.New(rand.NewPCG(1, 2))
+	x := nightjar.Matrix{N: 300, D: 10, Data: make([]float32, 300*10)}
+	group := make([]string, x.N)
+	for i := range x.N {
+		g := i % 3
+		group[i] = []string{"kestrel", "plover", "wren"}[g]
+		for j := range x.D {
+			x.Data[i*x.D+j] = float32(10*g*(j%2)) + float32(rng.NormFloat64())
+		}
+	}
+	dir, err := os.MkdirTemp("", "nightjar-example-")
+	if err != nil {
+		panic(err)
+	}
+	defer os.RemoveAll(dir)
+
+	s := nightjar.DefaultSettings()
+	s.Perplexity, s.Iterations, s.EarlyIterations = 20, 400, 100
+	labels := &nightjar.Column{Name: "bird", Strings: group}
+	res, err := nightjar.Embed(context.Background(), nightjar.FromMatrix(x, nil, labels), dir+"/run", s, nightjar.DefaultRuntime(), nil)
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	q := res.Report.Quality
+	fmt.Printf("%d rows mapped to %d-D\n", len(res.Map)/2, s.Dims)
+	fmt.Printf("10-NN label accuracy in the map above 0.95: %v\n", *q.LabelAccuracyMap > 0.95)
+	// Output:
+	// 300 rows mapped to 2-D
+	// 10-NN label accuracy in the map above 0.95: true
+}

@@ -1,0 +1,112 @@
+package nightjar
+
+import (
+	"fmt"
+	"os"
+	"path/filepath"
+
+	"nightjar/bench"
+	"nightjar/ingest"
+)
+
+// Source is the table a run maps: a file (FromFile), or a table in memory
+// (FromMatrix, DemoSource) that Embed first saves into the run directory as
+// a Parquet file, so that Resume and Score find it there.
+type Source struct {
+	path  string        // a table file, or "" for an in-memory table
+	table *ingest.Table // an in-memory table, saved under name
+	name  string
+	make  func() (*ingest.Table, error) // builds the table once the run directory exists
+}
+
+// FromFile returns the source of a Parquet, Arrow IPC or CSV table file
+// (CSV with a header row). The path is made absolute, so the run can be
+// resumed from another working directory.
+func FromFile(path string) Source { return Source{path: path} }
+
+// FromMatrix returns an in-memory source of the N×D matrix x, with optional
+// id and label columns of length N (nil for none). Embed saves it into the
+// run directory as input.parquet. x is read, not kept or changed.
+func FromMatrix(x Matrix, id, label *Column) Source {
+	t := &ingest.Table{Matrix: x, ID: id, Label: label}
+	t.Features = make([]string, x.D)
+	for j := range t.Features {
+		t.Features[j] = fmt.Sprintf("f%d", j+1)
+	}
+	return Source{table: t, name: "input.parquet"}
+}
+
+// DemoSource returns rows of nightjar's built-in demo data: an invented
+// survey of households in a fictional region, with an id and a population
+// label, generated deterministically from seed on threads goroutines (the
+// data do not depend on threads). Embed saves it into the run directory as
+// survey.parquet.
+func DemoSource(rows int, seed uint64, threads int) Source {
+	return Source{name: "survey.parquet", make: func() (*ingest.Table, error) {
+		return bench.Demo(rows, seed, threads), nil
+	}}
+}
+
+// check refuses a file source whose file cannot be found.
+func (src Source) check() error {
+	if src.path == "" {
+		return nil
+	}
+	if _, err := os.Stat(src.path); err != nil {
+		return &ingest.InputError{File: src.path, Reason: errorText(err), Err: err}
+	}
+	return nil
+}
+
+// resolve returns the path of the table to read, saving an in-memory table
+// into dir first, and the id and label column names of an in-memory table.
+func (src Source) resolve(dir string, obs Observer) (path, id, label string, err error) {
+	if src.path != "" {
+		abs, err := filepath.Abs(src.path)
+		if err != nil {
+			return "", "", "", fmt.Errorf("resolving %s: %w", src.path, err)
+		}
+		if _, err := os.Stat(abs); err != nil {
+			return "", "", "", &ingest.InputError{File: src.path, Reason: errorText(err), Err: err}
+		}
+		return abs, "", "", nil
+	}
+	t := src.table
+	if t == nil {
+		if src.make == nil {
+			return "", "", "", &SettingError{Msg: "empty source: use FromFile, FromMatrix or DemoSource"}
+		}
+		if t, err = src.make(); err != nil {
+			return "", "", "", err
+		}
+	}
+	if t.N*t.D != len(t.Data) {
+		return "", "", "", &SettingError{Msg: fmt.Sprintf("matrix of %d×%d holds %d values", t.N, t.D, len(t.Data))}
+	}
+	path = filepath.Join(dir, src.name)
+	if err := writeTable(path, t); err != nil {
+		return "", "", "", err
+	}
+	if src.make != nil {
+		obs.Note(fmt.Sprintf("demo: wrote %d rows × %d features of an invented survey to %s", t.N, t.D, path))
+	}
+	if path, err = filepath.Abs(path); err != nil {
+		return "", "", "", err
+	}
+	if t.ID != nil {
+		id = t.ID.Name
+	}
+	if t.Label != nil {
+		label = t.Label.Name
+	}
+	return path, id, label, nil
+}
+
+// errorText is the message of a file-system error without the operation
+// and path that the caller names itself.
+func errorText(err error) string {
+	if pe, ok := err.(*os.PathError); ok {
+		return pe.Err.Error()
+	}
+	return err.Error()
+}

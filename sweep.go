@@ -1,0 +1,107 @@
+package nightjar
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"io/fs"
+	"math"
+	"os"
+	"path/filepath"
+
+	"nightjar/bench"
+	"nightjar/checkpoint"
+	"nightjar/ingest"
+	"nightjar/internal/figure"
+)
+
+// Dataset is a table file prepared for a benchmark sweep.
+type Dataset struct {
+	Path      string
+	Rows      int
+	ID, Label string // column names, "" for none
+}
+
+// PrepareDataset returns the table a sweep runs on: "demo" (rows of the
+// invented survey, 20,000 when rows is 0) or "mnist" (the first rows of the
+// 70,000 MNIST digits from the GoMNIST module, all when rows is 0), written
+// as Parquet into dir unless already there; any other name is a table file,
+// read once with s's column choices to count its rows.
+func PrepareDataset(name string, rows int, s Settings, threads int, dir string, obs Observer) (Dataset, error) {
+	obs = observerOrQuiet(obs)
+	var t *ingest.Table
+	switch name {
+	case "demo":
+		if rows <= 0 {
+			rows = 20000
+		}
+		t = bench.Demo(rows, s.Seed, threads)
+	case "mnist":
+		mdir, err := bench.MNISTDir()
+		if err != nil {
+			return Dataset{}, err
+		}
+		if t, err = bench.MNIST(mdir, rows); err != nil {
+			return Dataset{}, err
+		}
+	default:
+		abs, err := filepath.Abs(name)
+		if err != nil {
+			return Dataset{}, err
+		}
+		s.Input = abs
+		probe, _, err := readTable(s, threads, nil)
+		if err != nil {
+			return Dataset{}, err
+		}
+		return Dataset{Path: abs, Rows: probe.N, ID: s.ID, Label: s.Label}, nil
+	}
+	path := filepath.Join(dir, fmt.Sprintf("data-%s-%d.parquet", name, t.N))
+	if _, err := os.Stat(path); err != nil {
+		obs.Note(fmt.Sprintf("bench: writing %d rows of %s to %s", t.N, name, path))
+		if err := writeTable(path, t); err != nil {
+			return Dataset{}, err
+		}
+	}
+	d := Dataset{Path: path, Rows: t.N, ID: t.ID.Name}
+	if t.Label != nil {
+		d.Label = t.Label.Name
+	}
+	return d, nil
+}
+
+// WriteSweepReports writes bench.csv, bench.md and bench.png into out, and
+// reports whether it drew bench.png: it does not when no run has both a time
+// and a trustworthiness score (runs without scores, or all failed), and then
+// removes any bench.png left by an earlier sweep in out.
+func WriteSweepReports(out string, meta bench.Meta, keys []string, rs []bench.Result) (bool, error) {
+	if err := checkpoint.AtomicWrite(filepath.Join(out, "bench.csv"), func(w io.Writer) error { return bench.WriteCSV(w, meta, keys, rs) }); err != nil {
+		return false, fmt.Errorf("writing bench.csv: %w", err)
+	}
+	if err := checkpoint.AtomicWrite(filepath.Join(out, "bench.md"), func(w io.Writer) error { return bench.WriteMarkdown(w, meta, keys, rs) }); err != nil {
+		return false, fmt.Errorf("writing bench.md: %w", err)
+	}
+	var pts []figure.TradeoffPoint
+	drawable := false
+	for _, r := range rs {
+		pts = append(pts, figure.TradeoffPoint{Name: r.Name, Seconds: r.Seconds, Quality: r.Trust})
+		drawable = drawable || (!math.IsNaN(r.Seconds) && !math.IsNaN(r.Trust))
+	}
+	if !drawable {
+		if err := os.Remove(filepath.Join(out, "bench.png")); err != nil && !errors.Is(err, fs.ErrNotExist) {
+			return false, fmt.Errorf("removing the old bench.png: %w", err)
+		}
+		return false, nil
+	}
+	title := fmt.Sprintf("%s: trustworthiness@%d against wall time (%d cores, %s)", meta.Dataset, meta.K, meta.Cores, meta.GoVersion)
+	if err := checkpoint.AtomicWrite(filepath.Join(out, "bench.png"), func(w io.Writer) error {
+		return figure.DrawTradeoff(w, title, fmt.Sprintf("trustworthiness@%d", meta.K), pts)
+	}); err != nil {
+		return false, fmt.Errorf("writing bench.png: %w", err)
+	}
+	return true, nil
+}
+
+// ScoreK is the neighbourhood size of the report's trustworthiness,
+// continuity and preservation.
+const ScoreK = scoreK
