@@ -13,20 +13,9 @@
 package par
 
 import (
-	"runtime"
 	"sync"
 	"sync/atomic"
 )
-
-// Threads returns threads if it is at least 1, else the number of cores the
-// process may use (runtime.GOMAXPROCS). Packages call it only where their
-// caller passed no thread count.
-func Threads(threads int) int {
-	if threads >= 1 {
-		return threads
-	}
-	return runtime.GOMAXPROCS(0)
-}
 
 // Blocks cuts [0, n) into blocks of size block and calls fn(worker, b, lo,
 // hi) for each block b = lo/block, from at most threads goroutines (fewer
