@@ -85,37 +85,11 @@ func runBench(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	u := &ui{w: stderr, quiet: quiet}
 	keys, combos := sweepCombos(vary, len(sizes) > 1)
-	var results []bench.Result
 	meta := bench.Meta{Dataset: *data, Cores: runtime.NumCPU(), GoVersion: runtime.Version(), K: nightjar.ScoreK,
 		Date: time.Now().UTC().Format("2006-01-02"), Command: "nightjar bench " + strings.Join(args, " ")}
-	total := len(combos) * len(sizes)
-	step := 0
-	for _, n := range sizes {
-		ds, err := nightjar.PrepareDataset(*data, n, s, r.Threads, *out, u)
-		if err != nil {
-			return err
-		}
-		s.Input, s.ID, s.Label = ds.Path, ds.ID, ds.Label
-		if *data == "demo" || *data == "mnist" {
-			s.Features = nil
-		}
-		meta.Rows = ds.Rows
-		u.Phase("bench", int64(total))
-		for _, c := range combos {
-			if ctx.Err() != nil {
-				u.Done()
-				return usagef("bench: interrupted after %d of %d runs", step, total)
-			}
-			name := comboName(keys, n, len(sizes) > 1, c)
-			u.Progress(int64(step), int64(total))
-			u.Detail(fmt.Sprintf("bench: %s (%d rows)", name, ds.Rows))
-			res := benchRun(self, filepath.Join(*out, "runs", strings.NewReplacer(" ", "_", "=", "-").Replace(name)), s, r, keys, n, len(sizes) > 1, c)
-			res.Name = name
-			results = append(results, res)
-			step++
-			u.Progress(int64(step), int64(total))
-		}
-		u.Done()
+	results, err := sweep(ctx, self, *data, *out, sizes, keys, combos, s, r, u, &meta)
+	if err != nil {
+		return err
 	}
 	for _, res := range results {
 		if res.Err != "" {
@@ -137,6 +111,43 @@ func runBench(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	fmt.Fprintf(stdout, "bench: %d runs; reports in %s (%s)\n", len(results), *out, files)
 	return nil
+}
+
+// sweep runs every combination at every size, each as a child process, and
+// returns their results in order.
+func sweep(ctx context.Context, self, data, out string, sizes []int, keys []string, combos [][]string,
+	s nightjar.Settings, r nightjar.Runtime, u *ui, meta *bench.Meta) ([]bench.Result, error) {
+	var results []bench.Result
+	total := len(combos) * len(sizes)
+	step := 0
+	for _, n := range sizes {
+		ds, err := nightjar.PrepareDataset(data, n, s, r.Threads, out, u)
+		if err != nil {
+			return nil, err
+		}
+		s.Input, s.ID, s.Label = ds.Path, ds.ID, ds.Label
+		if data == "demo" || data == "mnist" {
+			s.Features = nil
+		}
+		meta.Rows = ds.Rows
+		u.Phase("bench", int64(total))
+		for _, c := range combos {
+			if ctx.Err() != nil {
+				u.Done()
+				return nil, usagef("bench: interrupted after %d of %d runs", step, total)
+			}
+			name := comboName(keys, n, len(sizes) > 1, c)
+			u.Progress(int64(step), int64(total))
+			u.Detail(fmt.Sprintf("bench: %s (%d rows)", name, ds.Rows))
+			res := benchRun(self, filepath.Join(out, "runs", strings.NewReplacer(" ", "_", "=", "-").Replace(name)), s, r, keys, n, len(sizes) > 1, c)
+			res.Name = name
+			results = append(results, res)
+			step++
+			u.Progress(int64(step), int64(total))
+		}
+		u.Done()
+	}
+	return results, nil
 }
 
 // sweepCombos returns the keys of a sweep ("rows" first when it runs at
