@@ -254,7 +254,7 @@ func (j *job) recordSearch(method knn.Method, st knn.Stats) {
 		j.rep.Phases["neighbours_build"] = st.BuildSeconds
 		j.rep.Phases["neighbours_query"] = st.QuerySeconds
 	default:
-		j.rep.Phases["neighbours_trees"] = st.BuildSeconds
+		j.rep.Phases["neighbours_trees"] = st.TreeSeconds
 	}
 	j.rep.Phases["neighbours_probe"] = st.ProbeSeconds
 	for i, s := range st.PassSeconds {
