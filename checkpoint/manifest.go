@@ -2,6 +2,8 @@ package checkpoint
 
 import (
 	"bytes"
+	"crypto/sha256"
+	"encoding/hex"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -14,8 +16,16 @@ import (
 )
 
 // ManifestVersion is the manifest format version written by this build.
-// ReadManifest refuses other versions with a *VersionError.
-const ManifestVersion = 1
+// Version 2 adds the run id, the runtime options and a checksum over the
+// manifest itself; version 1 manifests (no checksum) are still read, and
+// saved again as version 2. ReadManifest refuses other versions with a
+// *VersionError.
+const ManifestVersion = 2
+
+// PrevManifestName is the copy of the manifest as it was before its last
+// save: the run falls back on it when manifest.json is damaged or was
+// changed outside nightjar.
+const PrevManifestName = "manifest.prev.json"
 
 // ManifestName is the file name of the manifest inside a run directory.
 const ManifestName = "manifest.json"
@@ -30,6 +40,7 @@ const (
 	PhaseNeighbours = "neighbours"
 	PhaseAffinities = "affinities"
 	PhaseOptimising = "optimising"
+	PhaseOutputs    = "outputs"
 	PhaseFinished   = "finished"
 	PhaseFailed     = "failed"
 )
@@ -43,7 +54,7 @@ const (
 )
 
 var (
-	phases   = []string{PhaseCreated, PhaseNeighbours, PhaseAffinities, PhaseOptimising, PhaseFinished, PhaseFailed}
+	phases   = []string{PhaseCreated, PhaseNeighbours, PhaseAffinities, PhaseOptimising, PhaseOutputs, PhaseFinished, PhaseFailed}
 	statuses = []string{StatusRunning, StatusInterrupted, StatusFinished, StatusFailed}
 )
 
@@ -108,10 +119,14 @@ func (f Fingerprint) Same(g Fingerprint) (bool, string) {
 
 // Manifest describes a run; it is stored as JSON in manifest.json.
 type Manifest struct {
-	Tool          string      `json:"tool"`
-	Version       string      `json:"version"`
-	FormatVersion int         `json:"format_version"`
-	Input         Fingerprint `json:"input"`
+	Tool          string `json:"tool"`
+	Version       string `json:"version"`
+	FormatVersion int    `json:"format_version"`
+	// RunID is made when the run is created and written into every file
+	// the run saves (graph, affinities, states), which are refused when
+	// loaded into another run. Empty for runs created by version-1 builds.
+	RunID string      `json:"run_id,omitempty"`
+	Input Fingerprint `json:"input"`
 	// Params holds all parameters of the run, opaque to this package.
 	Params     json.RawMessage `json:"params,omitempty"`
 	Phase      string          `json:"phase"`
@@ -126,6 +141,13 @@ type Manifest struct {
 	// SecondsPerIteration is the optimiser's measured pace, for estimates
 	// of the time left. Zero until measured.
 	SecondsPerIteration float64 `json:"seconds_per_iteration,omitempty"`
+	// Runtime holds the options given at creation that do not change the
+	// result (checkpoint cadence), kept for resumes; opaque to this package.
+	Runtime json.RawMessage `json:"runtime,omitempty"`
+	// Checksum is the hex SHA-256 of the manifest's JSON with Checksum
+	// empty (version 2): a manifest whose checksum fails was damaged or
+	// changed outside nightjar and is never used.
+	Checksum string `json:"checksum,omitempty"`
 	// Files maps logical names ("graph", "embedding" …) to file names in
 	// the run directory. Optional.
 	Files map[string]string `json:"files,omitempty"`
@@ -137,7 +159,7 @@ type Manifest struct {
 // Elapsed ≥ 0, Params valid JSON if present, and file names in Files that
 // are plain names inside the run directory.
 func (m *Manifest) Validate() error {
-	if m.FormatVersion != ManifestVersion {
+	if m.FormatVersion != ManifestVersion && m.FormatVersion != 1 {
 		return &VersionError{Got: uint32(m.FormatVersion), Want: ManifestVersion}
 	}
 	if m.Tool == "" {
@@ -172,6 +194,9 @@ func (m *Manifest) Validate() error {
 	}
 	if len(m.Params) > 0 && !json.Valid(m.Params) {
 		return errors.New("manifest: params are not valid JSON")
+	}
+	if len(m.Runtime) > 0 && !json.Valid(m.Runtime) {
+		return errors.New("manifest: runtime is not valid JSON")
 	}
 	for logical, name := range m.Files {
 		if logical == "" {
@@ -215,7 +240,40 @@ func ParseManifest(data []byte) (*Manifest, error) {
 	if err := m.Validate(); err != nil {
 		return nil, err
 	}
+	if m.FormatVersion >= 2 {
+		want, err := manifestChecksum(&m)
+		if err != nil {
+			return nil, err
+		}
+		if m.Checksum != want {
+			return nil, &ChecksumError{}
+		}
+	}
 	return &m, nil
+}
+
+// ChecksumError reports a manifest whose checksum does not match its
+// content: it was damaged, or changed outside nightjar.
+type ChecksumError struct{ File string }
+
+func (e *ChecksumError) Error() string {
+	name := e.File
+	if name == "" {
+		name = "manifest"
+	}
+	return name + ": checksum does not match the content (damaged, or changed outside nightjar)"
+}
+
+// manifestChecksum returns the hex SHA-256 of m's JSON with Checksum empty.
+func manifestChecksum(m *Manifest) (string, error) {
+	c := *m
+	c.Checksum = ""
+	b, err := json.Marshal(&c)
+	if err != nil {
+		return "", err
+	}
+	sum := sha256.Sum256(b)
+	return hex.EncodeToString(sum[:]), nil
 }
 
 // ReadManifest reads and validates the manifest at path (see ParseManifest).
@@ -240,13 +298,25 @@ func ReadManifest(path string) (*Manifest, error) {
 			ve.File = path
 			return nil, err
 		}
+		var ce *ChecksumError
+		if errors.As(err, &ce) {
+			ce.File = path
+			return nil, err
+		}
 		return nil, fmt.Errorf("%s: %w", path, err)
 	}
 	return m, nil
 }
 
-// marshalManifest returns the JSON written to manifest.json.
+// marshalManifest returns the JSON written to manifest.json, as the
+// current version with its checksum.
 func marshalManifest(m *Manifest) ([]byte, error) {
+	m.FormatVersion = ManifestVersion
+	sum, err := manifestChecksum(m)
+	if err != nil {
+		return nil, err
+	}
+	m.Checksum = sum
 	b, err := json.MarshalIndent(m, "", "  ")
 	if err != nil {
 		return nil, err

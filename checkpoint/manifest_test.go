@@ -68,7 +68,7 @@ func TestManifestRefuses(t *testing.T) {
 		{name: "file escapes", edit: func(m map[string]any) { m["files"] = map[string]string{"graph": "../x"} }, want: "plain name"},
 		{name: "absolute file", edit: func(m map[string]any) { m["files"] = map[string]string{"graph": "/etc/x"} }, want: "plain name"},
 		{name: "iteration as string", edit: func(m map[string]any) { m["iteration"] = "250" }, want: "cannot unmarshal"},
-		{name: "newer format", edit: func(m map[string]any) { m["format_version"] = 2 }, want: "format version 2",
+		{name: "newer format", edit: func(m map[string]any) { m["format_version"] = 3 }, want: "format version 3",
 			typeOK: func(e error) bool { var v *VersionError; return errors.As(e, &v) && v.File != "" }},
 		{name: "trailing data", raw: "TRAIL", want: "after the JSON"},
 		{name: "not JSON", raw: "REPLACE", want: "manifest"},
@@ -104,6 +104,38 @@ func TestManifestRefuses(t *testing.T) {
 		if tc.typeOK != nil && !tc.typeOK(err) {
 			t.Errorf("%s: error type %T", tc.name, err)
 		}
+	}
+}
+
+// TestManifestChecksum: a version-2 manifest edited into other valid JSON
+// fails its checksum; a version-1 manifest (no checksum) is still read.
+func TestManifestChecksum(t *testing.T) {
+	b, err := marshalManifest(validManifest())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := ParseManifest(b); err != nil {
+		t.Fatalf("valid manifest: %v", err)
+	}
+	edited := strings.Replace(string(b), `"iteration": 250`, `"iteration": 251`, 1)
+	if edited == string(b) {
+		t.Fatal("the edit did not apply")
+	}
+	var ce *ChecksumError
+	if _, err := ParseManifest([]byte(edited)); !errors.As(err, &ce) {
+		t.Errorf("edited manifest: %v, want a checksum error", err)
+	}
+	var obj map[string]any
+	if err := json.Unmarshal(b, &obj); err != nil {
+		t.Fatal(err)
+	}
+	obj["format_version"] = 1
+	delete(obj, "checksum")
+	delete(obj, "run_id")
+	v1, _ := json.Marshal(obj)
+	m, err := ParseManifest(v1)
+	if err != nil || m.FormatVersion != 1 {
+		t.Errorf("version-1 manifest: %v", err)
 	}
 }
 

@@ -1,6 +1,8 @@
 package checkpoint
 
 import (
+	"crypto/rand"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"io"
@@ -36,8 +38,12 @@ type Run struct {
 	// artifacts, and the removal of old states); nil means OSFS. Tests set it
 	// to make a write fail or stop. Reads and Open's clean-up use the
 	// operating system directly.
-	FS       FS
+	FS FS
+	// Fallback is set by Open when manifest.json could not be used and the
+	// earlier copy was: it says why, for a warning.
+	Fallback string
 	manifest *Manifest
+	last     []byte // the manifest's bytes as last written or read
 }
 
 // fsys returns the file system the run writes through.
@@ -48,16 +54,19 @@ func (r *Run) fsys() FS {
 	return r.FS
 }
 
-// Create makes dir (and its parents) and starts a run there, writing a first
-// manifest with tool "nightjar", phase "created", status "running" and
-// Started/Updated set to now. It refuses a directory that already holds a
-// manifest.
+// Create makes dir (and its parents) and returns a new run there with its
+// manifest in memory only: tool "nightjar", a new run id, phase "created",
+// status "running", Started/Updated now. The caller completes the manifest
+// (settings, input) and writes it with SaveManifest, so that the first
+// manifest on disk is complete. Create refuses a directory that already
+// holds a manifest. The caller should hold the directory's writer lock
+// (AcquireLock) before anything is written.
 func Create(dir string) (*Run, error) {
 	return CreateFS(dir, nil)
 }
 
-// CreateFS is Create with the run writing through fsys (nil means OSFS),
-// its first manifest included; the directory itself is made with os.MkdirAll.
+// CreateFS is Create with the run writing through fsys (nil means OSFS);
+// the directory itself is made with os.MkdirAll.
 func CreateFS(dir string, fsys FS) (*Run, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, fmt.Errorf("creating run directory: %w", err)
@@ -69,43 +78,77 @@ func CreateFS(dir string, fsys FS) (*Run, error) {
 		return nil, fmt.Errorf("creating run directory: %w", err)
 	}
 	now := time.Now().UTC()
-	r := &Run{Dir: dir, FS: fsys}
-	m := &Manifest{
+	return &Run{Dir: dir, FS: fsys, manifest: &Manifest{
 		Tool:          "nightjar",
 		FormatVersion: ManifestVersion,
+		RunID:         newRunID(),
 		Phase:         PhaseCreated,
 		Status:        StatusRunning,
 		Started:       now,
 		Updated:       now,
-	}
-	if err := r.SaveManifest(m); err != nil {
-		return nil, err
-	}
-	return r, nil
+	}}, nil
 }
 
-// Open opens an existing run directory: it reads and validates its manifest
-// and removes temporary files left by an interrupted write.
-func Open(dir string) (*Run, error) {
-	m, err := ReadManifest(filepath.Join(dir, ManifestName))
-	if err != nil {
-		if errors.Is(err, fs.ErrNotExist) {
-			return nil, fmt.Errorf("%s is not a run directory (no %s): %w", dir, ManifestName, err)
-		}
-		return nil, err
+// newRunID returns 16 random hex digits.
+func newRunID() string {
+	var b [8]byte
+	if _, err := rand.Read(b[:]); err != nil {
+		panic("checkpoint: no randomness for a run id: " + err.Error())
 	}
-	entries, err := os.ReadDir(dir)
+	return hex.EncodeToString(b[:])
+}
+
+// Open opens an existing run directory: it reads and validates its
+// manifest, and writes nothing. A manifest that fails its checksum or its
+// validation is never used: Open then falls back on the copy saved before
+// the last change (PrevManifestName) when that one is valid, and says so in
+// Run.Fallback; otherwise it returns an error saying what to do.
+func Open(dir string) (*Run, error) {
+	path := filepath.Join(dir, ManifestName)
+	m, raw, err := readManifestBytes(path)
+	if err == nil {
+		return &Run{Dir: dir, manifest: m, last: raw}, nil
+	}
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil, fmt.Errorf("%s is not a run directory (no %s): %w", dir, ManifestName, err)
+	}
+	prev, praw, perr := readManifestBytes(filepath.Join(dir, PrevManifestName))
+	if perr != nil {
+		return nil, fmt.Errorf("%w; no valid earlier copy (%s) to fall back on: restore %s from a backup, or start a new run in another directory", err, PrevManifestName, ManifestName)
+	}
+	return &Run{Dir: dir, manifest: prev, last: praw,
+		Fallback: fmt.Sprintf("%v; using the copy saved before the last change (%s): the manifest was changed or damaged outside nightjar", err, PrevManifestName)}, nil
+}
+
+// readManifestBytes reads and parses a manifest, returning its bytes too.
+func readManifestBytes(path string) (*Manifest, []byte, error) {
+	m, err := ReadManifest(path)
 	if err != nil {
-		return nil, fmt.Errorf("opening run directory: %w", err)
+		return nil, nil, err
+	}
+	raw, err := os.ReadFile(path)
+	if err != nil {
+		return nil, nil, fmt.Errorf("reading manifest: %w", err)
+	}
+	return m, raw, nil
+}
+
+// RemoveTemporaries removes the temporary files that an interrupted write
+// left in the run directory. Only the holder of the writer lock may call
+// it: another process's temporaries may be writes in progress.
+func (r *Run) RemoveTemporaries() error {
+	entries, err := os.ReadDir(r.Dir)
+	if err != nil {
+		return fmt.Errorf("listing %s: %w", r.Dir, err)
 	}
 	for _, e := range entries {
 		if e.Type().IsRegular() && isTempName(e.Name()) {
-			if err := os.Remove(filepath.Join(dir, e.Name())); err != nil {
-				return nil, fmt.Errorf("removing leftover temporary file: %w", err)
+			if err := os.Remove(filepath.Join(r.Dir, e.Name())); err != nil && !errors.Is(err, fs.ErrNotExist) {
+				return fmt.Errorf("removing leftover temporary file: %w", err)
 			}
 		}
 	}
-	return &Run{Dir: dir, manifest: m}, nil
+	return nil
 }
 
 // Manifest returns the run's manifest as last saved or read. The caller may
@@ -122,12 +165,22 @@ func (r *Run) SaveManifest(m *Manifest) error {
 	if err != nil {
 		return fmt.Errorf("saving manifest of %s: %w", r.Dir, err)
 	}
+	if r.last != nil {
+		prev := r.last
+		if err := AtomicWriteFS(r.fsys(), r.Path(PrevManifestName), func(w io.Writer) error {
+			_, err := w.Write(prev)
+			return err
+		}); err != nil {
+			return err
+		}
+	}
 	if err := AtomicWriteFS(r.fsys(), r.Path(ManifestName), func(w io.Writer) error {
 		_, err := w.Write(b)
 		return err
 	}); err != nil {
 		return err
 	}
+	r.last = b
 	r.manifest = m
 	return nil
 }
@@ -195,6 +248,7 @@ func (r *Run) SaveState(iteration int, sections []Section) error {
 		all = append(all, s)
 	}
 	all = append(all, Section{Name: iterationSection, Data: EncodeValues([]int64{int64(iteration)})})
+	all = r.withRunID(all)
 	if err := writeFile(r.fsys(), r.Path(stateName(iteration)), KindState, all); err != nil {
 		return fmt.Errorf("saving state at iteration %d: %w", iteration, err)
 	}
@@ -266,6 +320,10 @@ func (r *Run) loadState(it int) ([]Section, error) {
 	if err != nil || len(v) != 1 || v[0] != int64(it) {
 		return nil, &CorruptError{File: path, Section: iterationSection, Reason: "does not match the iteration in the file name"}
 	}
+	secs, err = r.checkRunID(path, secs)
+	if err != nil {
+		return nil, err
+	}
 	out := secs[:0:0]
 	for _, s := range secs {
 		if s.Name != iterationSection {
@@ -291,10 +349,59 @@ func (r *Run) SaveArtifact(name, kind string, sections []Section) error {
 	if err != nil {
 		return err
 	}
-	if err := writeFile(r.fsys(), r.Path(f), kind, sections); err != nil {
+	for _, sec := range sections {
+		if strings.HasPrefix(sec.Name, "checkpoint.") {
+			return fmt.Errorf("saving %s: section name %q is reserved", name, sec.Name)
+		}
+	}
+	if err := writeFile(r.fsys(), r.Path(f), kind, r.withRunID(sections)); err != nil {
 		return fmt.Errorf("saving %s: %w", name, err)
 	}
 	return nil
+}
+
+// runSection is the section holding the run id in every file a run saves.
+const runSection = "checkpoint.run"
+
+// withRunID appends the run id section when the run has an id.
+func (r *Run) withRunID(sections []Section) []Section {
+	if r.manifest == nil || r.manifest.RunID == "" {
+		return sections
+	}
+	return append([]Section{{Name: runSection, Data: []byte(r.manifest.RunID)}}, sections...)
+}
+
+// ForeignError reports a file that another run saved: it is refused.
+type ForeignError struct {
+	File      string
+	Want, Got string // run ids; Got is empty when the file has none
+}
+
+func (e *ForeignError) Error() string {
+	if e.Got == "" {
+		return fmt.Sprintf("%s carries no run id: it was not saved by this run (%s)", e.File, e.Want)
+	}
+	return fmt.Sprintf("%s belongs to another run (%s, this run is %s)", e.File, e.Got, e.Want)
+}
+
+// checkRunID refuses the sections of a file saved by another run, and
+// returns them without the run id section.
+func (r *Run) checkRunID(path string, sections []Section) ([]Section, error) {
+	want := ""
+	if r.manifest != nil {
+		want = r.manifest.RunID
+	}
+	got, err := Lookup(sections, runSection)
+	if want != "" && (err != nil || string(got) != want) {
+		return nil, &ForeignError{File: path, Want: want, Got: string(got)}
+	}
+	out := sections[:0:0]
+	for _, s := range sections {
+		if s.Name != runSection {
+			out = append(out, s)
+		}
+	}
+	return out, nil
 }
 
 // LoadArtifact reads the artifact written by SaveArtifact(name, kind, …).
@@ -305,5 +412,9 @@ func (r *Run) LoadArtifact(name, kind string) ([]Section, error) {
 	if err != nil {
 		return nil, err
 	}
-	return ReadFile(r.Path(f), kind)
+	secs, err := ReadFile(r.Path(f), kind)
+	if err != nil {
+		return nil, err
+	}
+	return r.checkRunID(r.Path(f), secs)
 }

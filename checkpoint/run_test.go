@@ -34,8 +34,14 @@ func TestCreateOpen(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if m := r.Manifest(); m.Phase != PhaseCreated || m.Status != StatusRunning || m.Started.IsZero() {
+	if m := r.Manifest(); m.Phase != PhaseCreated || m.Status != StatusRunning || m.Started.IsZero() || len(m.RunID) != 16 {
 		t.Errorf("first manifest %+v", m)
+	}
+	if names := listDir(t, dir); len(names) != 0 {
+		t.Errorf("Create wrote %v before the manifest was complete", names)
+	}
+	if err := r.SaveManifest(r.Manifest()); err != nil {
+		t.Fatal(err)
 	}
 	_, err = Create(dir)
 	if err == nil || !strings.Contains(err.Error(), "already holds a run") || !strings.Contains(err.Error(), "resume") {
@@ -51,7 +57,9 @@ func TestCreateOpen(t *testing.T) {
 	if err := r.SaveManifest(&bad); err == nil {
 		t.Error("invalid manifest saved")
 	}
-	// A temporary file left by a killed write is cleared by Open.
+	// A temporary file left by a killed write is left alone by Open (it
+	// may be another process's write in progress) and cleared by
+	// RemoveTemporaries, which only the lock holder calls.
 	if err := os.WriteFile(filepath.Join(dir, ".state-000000010.njs.tmp-123"), []byte("x"), 0o600); err != nil {
 		t.Fatal(err)
 	}
@@ -62,7 +70,13 @@ func TestCreateOpen(t *testing.T) {
 	if r2.Manifest().Phase != PhaseNeighbours || r2.Manifest().Iterations != 1000 {
 		t.Errorf("reopened manifest %+v", r2.Manifest())
 	}
-	if names := listDir(t, dir); !slices.Equal(names, []string{ManifestName}) {
+	if names := listDir(t, dir); !slices.Contains(names, ".state-000000010.njs.tmp-123") {
+		t.Errorf("Open removed a temporary: %v", names)
+	}
+	if err := r2.RemoveTemporaries(); err != nil {
+		t.Fatal(err)
+	}
+	if names := listDir(t, dir); !slices.Equal(names, []string{ManifestName, PrevManifestName}) {
 		t.Errorf("directory holds %v", names)
 	}
 	if _, err := Open(t.TempDir()); err == nil || !strings.Contains(err.Error(), "not a run directory") || !errors.Is(err, fs.ErrNotExist) {
@@ -71,10 +85,7 @@ func TestCreateOpen(t *testing.T) {
 }
 
 func TestSaveStateKeepsTwo(t *testing.T) {
-	r, err := Create(t.TempDir())
-	if err != nil {
-		t.Fatal(err)
-	}
+	r := newRun(t)
 	if _, _, _, err := r.LoadState(); !errors.Is(err, ErrNoState) {
 		t.Errorf("LoadState before any save: %v", err)
 	}
@@ -122,6 +133,9 @@ func TestSaveStateStopsAtEachStep(t *testing.T) {
 	for step := 0; ; step++ {
 		r, err := CreateFS(t.TempDir(), &faultFS{})
 		if err != nil {
+			t.Fatal(err)
+		}
+		if err := r.SaveManifest(r.Manifest()); err != nil {
 			t.Fatal(err)
 		}
 		for _, it := range []int{10, 20} {
@@ -175,10 +189,7 @@ func TestLoadStateFallback(t *testing.T) {
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			r, err := Create(t.TempDir())
-			if err != nil {
-				t.Fatal(err)
-			}
+			r := newRun(t)
 			for _, it := range []int{250, 500} {
 				if err := r.SaveState(it, stateSections(it)); err != nil {
 					t.Fatal(err)
@@ -214,10 +225,7 @@ func TestLoadStateFallback(t *testing.T) {
 }
 
 func TestLoadStateAllBad(t *testing.T) {
-	r, err := Create(t.TempDir())
-	if err != nil {
-		t.Fatal(err)
-	}
+	r := newRun(t)
 	for _, it := range []int{1, 2} {
 		if err := os.WriteFile(r.Path(stateName(it)), []byte("garbage"), 0o644); err != nil {
 			t.Fatal(err)
@@ -239,10 +247,7 @@ func TestLoadStateAllBad(t *testing.T) {
 // TestLoadStateRenamed refuses a state whose contents belong to another
 // iteration than its name says (a hand-copied file).
 func TestLoadStateRenamed(t *testing.T) {
-	r, err := Create(t.TempDir())
-	if err != nil {
-		t.Fatal(err)
-	}
+	r := newRun(t)
 	if err := r.SaveState(10, stateSections(10)); err != nil {
 		t.Fatal(err)
 	}
@@ -283,10 +288,7 @@ func TestParseStateName(t *testing.T) {
 }
 
 func TestArtifacts(t *testing.T) {
-	r, err := Create(t.TempDir())
-	if err != nil {
-		t.Fatal(err)
-	}
+	r := newRun(t)
 	graph := []Section{
 		{Name: "indices", Data: EncodeValues([]int32{1, 0, 0, 1})},
 		{Name: "distances", Data: EncodeValues([]float32{0.5, 0.5, 1, 1})},
@@ -310,4 +312,17 @@ func TestArtifacts(t *testing.T) {
 			t.Errorf("artifact name %q accepted", bad)
 		}
 	}
+}
+
+// newRun creates a run in a temporary directory and writes its manifest.
+func newRun(t *testing.T) *Run {
+	t.Helper()
+	r, err := Create(t.TempDir())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := r.SaveManifest(r.Manifest()); err != nil {
+		t.Fatal(err)
+	}
+	return r
 }
