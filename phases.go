@@ -80,6 +80,9 @@ func (j *job) readInput(resumed bool) error {
 	if t.Skipped > 0 {
 		j.obs.Note(fmt.Sprintf("skipped %d rows with NaN, Inf or empty features (--skip-invalid)", t.Skipped))
 	}
+	if err := j.saveFeatures(t, pca); err != nil {
+		return err
+	}
 	j.obs.Note(fmt.Sprintf("read %d rows × %d features from %s (%s) in %.1fs", t.N, t.D, j.s.Input, t.Format, time.Since(t0).Seconds()))
 	j.rep.Rows, j.rep.Features, j.rep.Skipped, j.rep.Format = t.N, t.D, t.Skipped, t.Format
 	j.rep.Phases["read"] = time.Since(t0).Seconds()
