@@ -3,6 +3,7 @@ module nightjar
 go 1.26.8
 
 require (
+	codeberg.org/go-fonts/liberation v0.5.0
 	github.com/apache/arrow/go/v17 v17.0.0
 	github.com/coder/hnsw v0.6.1
 	github.com/google/flatbuffers v24.3.25+incompatible
@@ -15,7 +16,6 @@ require (
 )
 
 require (
-	codeberg.org/go-fonts/liberation v0.5.0 // indirect
 	codeberg.org/go-latex/latex v0.2.0 // indirect
 	codeberg.org/go-pdf/fpdf v0.11.1 // indirect
 	git.sr.ht/~sbinet/gg v0.7.0 // indirect

@@ -21,7 +21,8 @@ func (j *job) finish(y []float64) error {
 	}
 	labels := labelStrings(t.Label)
 	if err := checkpoint.AtomicWrite(j.run.Path(FileMap), func(w io.Writer) error {
-		return figure.DrawMap(w, y, j.s.Dims, labels, figure.MapOptions{})
+		_, err := figure.DrawMap(w, figure.Map{Y: y, Dims: j.s.Dims, Colour: figure.Categories(j.s.Label, labels)}, figure.MapOptions{})
+		return err
 	}); err != nil {
 		return fmt.Errorf("drawing %s: %w", FileMap, err)
 	}

@@ -5,8 +5,11 @@ import (
 	"io"
 	"math"
 
+	xfont "golang.org/x/image/font"
 	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/font"
 	"gonum.org/v1/plot/plotter"
+	"gonum.org/v1/plot/text"
 	"gonum.org/v1/plot/vg"
 )
 
@@ -19,9 +22,11 @@ type TradeoffPoint struct {
 
 // DrawTradeoff writes a PNG chart of quality against wall time for the runs of
 // a sweep, each point labelled with its setting. The chart is small (a few
-// dozen points), so gonum/plot draws it.
+// dozen points), so gonum/plot draws it, in the style of the map: the same
+// font (Liberation Sans, bold title) and inks.
 func DrawTradeoff(w io.Writer, title, quality string, pts []TradeoffPoint) error {
 	p := plot.New()
+	styleChart(p)
 	p.Title.Text = title
 	p.X.Label.Text = "wall time (s)"
 	p.Y.Label.Text = quality
@@ -46,11 +51,15 @@ func DrawTradeoff(w io.Writer, title, quality string, pts []TradeoffPoint) error
 	if err != nil {
 		return fmt.Errorf("tradeoff chart: %w", err)
 	}
+	sc.GlyphStyle.Color = design[0].RGB
 	for i := range lb.TextStyle {
-		lb.TextStyle[i].Font.Size = vg.Points(8)
+		lb.TextStyle[i].Font = chartFont(false, 8)
+		lb.TextStyle[i].Color = Soft
 		lb.Offset = vg.Point{X: vg.Points(4), Y: vg.Points(2)}
 	}
-	p.Add(sc, lb, plotter.NewGrid())
+	grid := plotter.NewGrid()
+	grid.Vertical.Color, grid.Horizontal.Color = Frame, Frame
+	p.Add(grid, sc, lb)
 	// Fix the ranges: x from 0 with room for the labels; y at least 0.02
 	// wide, so that differences in the fourth decimal do not fill the chart.
 	lo, hi, right := math.Inf(1), math.Inf(-1), 0.0
@@ -70,4 +79,27 @@ func DrawTradeoff(w io.Writer, title, quality string, pts []TradeoffPoint) error
 	}
 	_, err = wt.WriteTo(w)
 	return err
+}
+
+// chartFont returns Liberation Sans (bold or regular) at size points.
+func chartFont(heavy bool, size float64) font.Font {
+	f := font.Font{Typeface: "Liberation", Variant: "Sans", Size: vg.Points(size)}
+	if heavy {
+		f.Weight = xfont.WeightBold
+	}
+	return f
+}
+
+// styleChart gives a gonum plot the figures' shared style.
+func styleChart(p *plot.Plot) {
+	p.Title.TextStyle = text.Style{Color: Ink, Font: chartFont(true, 14), Handler: p.Title.TextStyle.Handler, XAlign: p.Title.TextStyle.XAlign, YAlign: p.Title.TextStyle.YAlign}
+	p.Title.Padding = vg.Points(8)
+	for _, ax := range []*plot.Axis{&p.X, &p.Y} {
+		ax.Label.TextStyle.Font = chartFont(false, 11)
+		ax.Label.TextStyle.Color = Ink
+		ax.Tick.Label.Font = chartFont(false, 9)
+		ax.Tick.Label.Color = Soft
+		ax.LineStyle.Color = Frame
+		ax.Tick.LineStyle.Color = Frame
+	}
 }

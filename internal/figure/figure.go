@@ -9,104 +9,57 @@ import (
 	"image/png"
 	"io"
 	"math"
-	"slices"
-	"sort"
 )
 
-// MapOptions controls DrawMap. The zero value gives a 1600×1600 picture titled
-// "nightjar map".
+// Map is what DrawMap draws.
+type Map struct {
+	// Y holds N points of Dims coordinates each, row-major (len(Y) = N·Dims,
+	// Dims ∈ {2, 3}); a 3-D map is drawn by its first two axes.
+	Y    []float64
+	Dims int
+	// Colour says how the points are coloured; the zero value draws every
+	// point in Plain, without a legend.
+	Colour Colouring
+	// Placed is nil, or holds one flag per point: false marks a reference
+	// row, drawn in the Reference grey under the others, true a placed row,
+	// drawn in its colour on top.
+	Placed []bool
+}
+
+// MapOptions controls DrawMap. The zero value gives a 1600×1600 picture
+// titled "nightjar map", points sized by their number and shaded by density.
 type MapOptions struct {
 	// Width and Height of the picture in pixels; 0 means 1600. Each must be at
 	// least 400 when set.
 	Width, Height int
-	// Title is the first line of the picture; "" means "nightjar map". Text is
-	// drawn with a 7×13 ASCII font: other characters show as '?'.
+	// Title is the first line of the picture; "" means "nightjar map".
 	Title string
-	// Caption is an optional extra line under the title (data set, parameters…).
+	// Caption is an optional line under the title (data set, parameters…).
 	Caption string
+	// PointSize is the diameter of a point in pixels; 0 sizes points by
+	// their number (3 pixels up to 150,000 points, 1 beyond).
+	PointSize float64
+	// Opacity is each point's opacity in (0, 1]: a pixel covered by c points
+	// is drawn with opacity 1 − (1 − Opacity)^c. 0 shades by density (see
+	// the package doc).
+	Opacity float64
 }
 
-// palette holds 20 distinct colours, chosen by hand to stay apart from each other
-// and from the white background; labels beyond 20 reuse them in order.
-var palette = []color.RGBA{
-	{0x1f, 0x5f, 0xbf, 0xff}, // blue
-	{0xe0, 0x6a, 0x10, 0xff}, // orange
-	{0x2a, 0x9d, 0x3c, 0xff}, // green
-	{0xc8, 0x20, 0x30, 0xff}, // red
-	{0x7b, 0x4f, 0xb8, 0xff}, // violet
-	{0x8a, 0x5a, 0x2b, 0xff}, // brown
-	{0xe0, 0x5c, 0xb4, 0xff}, // pink
-	{0x55, 0x55, 0x55, 0xff}, // dark grey
-	{0xa8, 0xa8, 0x18, 0xff}, // olive
-	{0x10, 0xb0, 0xc8, 0xff}, // cyan
-	{0x0b, 0x2f, 0x6b, 0xff}, // navy
-	{0xf5, 0xb0, 0x3a, 0xff}, // amber
-	{0x0e, 0x6b, 0x3b, 0xff}, // dark green
-	{0xf0, 0x8a, 0x8a, 0xff}, // salmon
-	{0x3d, 0x1e, 0x6e, 0xff}, // indigo
-	{0xc4, 0x9a, 0x6c, 0xff}, // tan
-	{0x8c, 0x0e, 0x5a, 0xff}, // plum
-	{0x7c, 0xd6, 0x5a, 0xff}, // lime
-	{0x6b, 0x10, 0x10, 0xff}, // maroon
-	{0x6c, 0x9c, 0xd8, 0xff}, // sky
-}
-
-// unlabelled is the colour of points when DrawMap is given no labels.
-var unlabelled = color.RGBA{0x40, 0x40, 0x40, 0xff}
-
-// Palette returns a copy of the label colours, in the order they are given to
-// labels (most frequent label first).
-func Palette() []color.RGBA { return slices.Clone(palette) }
-
-// LegendEntry is one line of the legend: a label, its number of points and its colour.
-type LegendEntry struct {
-	Label  string
-	Count  int
-	Colour color.RGBA
-}
-
-// Legend returns the legend DrawMap would draw for labels: distinct labels by
-// decreasing count, ties by label text, with colours from Palette assigned in
-// that order and repeating after len(Palette()). It returns nil for nil labels.
-func Legend(labels []string) []LegendEntry {
-	if labels == nil {
-		return nil
-	}
-	counts := map[string]int{}
-	for _, l := range labels {
-		counts[l]++
-	}
-	out := make([]LegendEntry, 0, len(counts))
-	for l, c := range counts {
-		out = append(out, LegendEntry{Label: l, Count: c})
-	}
-	sort.Slice(out, func(a, b int) bool {
-		if out[a].Count != out[b].Count {
-			return out[a].Count > out[b].Count
-		}
-		return out[a].Label < out[b].Label
-	})
-	for i := range out {
-		out[i].Colour = palette[i%len(palette)]
-	}
-	return out
-}
-
-// DrawMap writes a PNG picture of a map to w.
+// DrawMap writes a PNG picture of a map to w: a header (title, caption, the
+// number of points and the caution about what a t-SNE map shows), the points
+// in a frame with equal scales on both axes and no ticks (t-SNE coordinates
+// have no units), and on the right the legend of the categories (with
+// counts, as many as fit, then how many more) or the colour bar of the
+// numbers. Text is drawn in Liberation Sans; characters the font lacks are
+// drawn as boxes and returned, so the caller can warn. Identical inputs give
+// identical bytes.
 //
-// y holds N points of dims coordinates each, row-major (len(y) = N·dims,
-// dims ∈ {2, 3}); a 3-D map is drawn by its first two axes, and the caption says
-// so. labels is nil (all points grey, no legend) or holds one label per point;
-// points are coloured by label (see Legend) and the legend lists every label with
-// its count, as many as fit, then a line telling how many more there are. The
-// plot keeps equal scales on both axes and shows the whole map; axes carry no
-// ticks because t-SNE coordinates have no units. Identical inputs give identical
-// bytes. DrawMap returns an error for inconsistent sizes, a non-finite
-// coordinate, a too small picture, or a failed write.
-func DrawMap(w io.Writer, y []float64, dims int, labels []string, opt MapOptions) error {
-	n, err := checkMap(y, dims, labels)
+// DrawMap returns an error for inconsistent sizes, a non-finite coordinate, a
+// too small picture, an option out of range, or a failed write.
+func DrawMap(w io.Writer, m Map, opt MapOptions) (lacking []rune, err error) {
+	n, err := checkMap(m, opt)
 	if err != nil {
-		return err
+		return nil, err
 	}
 	W, H := opt.Width, opt.Height
 	if W == 0 {
@@ -116,55 +69,61 @@ func DrawMap(w io.Writer, y []float64, dims int, labels []string, opt MapOptions
 		H = 1600
 	}
 	if W < 400 || H < 400 {
-		return fmt.Errorf("drawing map: picture %d×%d is smaller than 400×400", W, H)
+		return nil, fmt.Errorf("drawing map: picture %d×%d is smaller than 400×400", W, H)
 	}
 	title := opt.Title
 	if title == "" {
 		title = "nightjar map"
 	}
-
 	img := image.NewRGBA(image.Rect(0, 0, W, H))
-	draw.Draw(img, img.Bounds(), image.NewUniform(color.White), image.Point{}, draw.Src)
+	draw.Draw(img, img.Bounds(), image.NewUniform(Paper), image.Point{}, draw.Src)
 	ly := newLayout(W, H)
-	top := ly.header(img, title, opt.Caption, n, dims)
-	legend := Legend(labels)
-	pw, ph := W-2*ly.margin-ly.legendWidth(legend, W), H-top-ly.margin
+	top := ly.header(img, title, opt.Caption, n, m.Dims)
+	side := ly.sideWidth(m, W)
+	pw, ph := W-2*ly.margin-side, H-top-ly.margin
 	if pw < 100 || ph < 100 {
-		return fmt.Errorf("drawing map: picture %d×%d leaves no room for the plot", W, H)
+		return nil, fmt.Errorf("drawing map: picture %d×%d leaves no room for the plot", W, H)
 	}
 	plot := image.Rect(ly.margin, top, ly.margin+pw, top+ph)
-	plotPoints(img, plot, y, dims, labels, legend)
+	plotPoints(img, plot, m, opt)
 	drawFrame(img, plot)
-	if legend != nil {
-		ly.legend(img, legend, plot.Max.X+ly.margin, top)
+	if side > 0 {
+		ly.side(img, m, plot.Max.X+ly.margin, top, side-ly.margin)
 	}
-
 	bw := bufio.NewWriter(w)
 	if err := png.Encode(bw, img); err != nil {
-		return fmt.Errorf("writing map picture: %w", err)
+		return nil, fmt.Errorf("writing map picture: %w", err)
 	}
 	if err := bw.Flush(); err != nil {
-		return fmt.Errorf("writing map picture: %w", err)
+		return nil, fmt.Errorf("writing map picture: %w", err)
 	}
-	return nil
+	return ly.ts.lacking(), nil
 }
 
-// checkMap checks the sizes and values DrawMap is given and returns the number
-// of points.
-func checkMap(y []float64, dims int, labels []string) (int, error) {
-	if dims != 2 && dims != 3 {
-		return 0, fmt.Errorf("drawing map: dims = %d, want 2 or 3", dims)
+// checkMap checks what DrawMap is given and returns the number of points.
+func checkMap(m Map, opt MapOptions) (int, error) {
+	if m.Dims != 2 && m.Dims != 3 {
+		return 0, fmt.Errorf("drawing map: dims = %d, want 2 or 3", m.Dims)
 	}
-	if len(y)%dims != 0 {
-		return 0, fmt.Errorf("drawing map: len(y) = %d is not a multiple of dims = %d", len(y), dims)
+	if len(m.Y)%m.Dims != 0 {
+		return 0, fmt.Errorf("drawing map: len(y) = %d is not a multiple of dims = %d", len(m.Y), m.Dims)
 	}
-	n := len(y) / dims
-	if labels != nil && len(labels) != n {
-		return 0, fmt.Errorf("drawing map: %d labels for %d points", len(labels), n)
+	n := len(m.Y) / m.Dims
+	if err := m.Colour.check(n); err != nil {
+		return 0, fmt.Errorf("drawing map: %w", err)
 	}
-	for i, v := range y {
+	if m.Placed != nil && len(m.Placed) != n {
+		return 0, fmt.Errorf("drawing map: %d placed flags for %d points", len(m.Placed), n)
+	}
+	if !(opt.PointSize >= 0 && opt.PointSize <= 50) {
+		return 0, fmt.Errorf("drawing map: point size %g, want 0 (automatic) to 50 pixels", opt.PointSize)
+	}
+	if !(opt.Opacity >= 0 && opt.Opacity <= 1) {
+		return 0, fmt.Errorf("drawing map: opacity %g, want 0 (automatic) to 1", opt.Opacity)
+	}
+	for i, v := range m.Y {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return 0, fmt.Errorf("drawing map: point %d has a non-finite coordinate %v", i/dims, v)
+			return 0, fmt.Errorf("drawing map: point %d has a non-finite coordinate %v", i/m.Dims, v)
 		}
 	}
 	return n, nil
@@ -175,37 +134,45 @@ func checkMap(y []float64, dims int, labels []string) (int, error) {
 func drawFrame(img *image.RGBA, r image.Rectangle) {
 	left, top, pw, ph := r.Min.X, r.Min.Y, r.Dx(), r.Dy()
 	for i := 0; i <= pw; i++ {
-		img.SetRGBA(left+i, top, frame)
-		img.SetRGBA(left+i, top+ph, frame)
+		img.SetRGBA(left+i, top, Frame)
+		img.SetRGBA(left+i, top+ph, Frame)
 	}
 	for i := 0; i <= ph; i++ {
-		img.SetRGBA(left, top+i, frame)
-		img.SetRGBA(left+pw, top+i, frame)
+		img.SetRGBA(left, top+i, Frame)
+		img.SetRGBA(left+pw, top+i, Frame)
 	}
 }
 
-// plotPoints rasterises the points into the rectangle r of img.
-func plotPoints(img *image.RGBA, r image.Rectangle, y []float64, dims int, labels []string, legend []LegendEntry) {
-	n := len(y) / dims
+// plotPoints rasterises the points into the rectangle r of img: the
+// reference rows first (when some rows are placed), then the others.
+func plotPoints(img *image.RGBA, r image.Rectangle, m Map, opt MapOptions) {
+	n := len(m.Y) / m.Dims
 	if n == 0 {
 		return
 	}
-	colourOf := map[string]color.RGBA{}
-	for _, e := range legend {
-		colourOf[e.Label] = e.Colour
+	tf := fitMap(m.Y, m.Dims, r.Dx(), r.Dy())
+	disc := splat(n, opt.PointSize, r.Dx(), r.Dy())
+	layers := []bool{false}
+	if m.Placed != nil {
+		layers = []bool{false, true}
 	}
-	px := newPixels(r.Dx(), r.Dy())
-	tf := fitMap(y, dims, px.w, px.h)
-	disc := splat(n, px.w, px.h)
-	for i := range n {
-		c := unlabelled
-		if labels != nil {
-			c = colourOf[labels[i]]
+	for _, placed := range layers {
+		px := newPixels(r.Dx(), r.Dy())
+		for i := range n {
+			c := m.Colour.colour(i)
+			if m.Placed != nil {
+				if m.Placed[i] != placed {
+					continue
+				}
+				if !placed {
+					c = Reference
+				}
+			}
+			u, v := tf.at(m.Y[i*m.Dims], m.Y[i*m.Dims+1])
+			px.add(u, v, disc, c)
 		}
-		u, v := tf.at(y[i*dims], y[i*dims+1])
-		px.add(u, v, disc, c)
+		px.paint(img, r.Min, opt.Opacity)
 	}
-	px.paint(img, r.Min)
 }
 
 // plotPad is the empty border inside the plot, in pixels.
@@ -248,11 +215,14 @@ func (t mapTransform) at(x, y float64) (int, int) {
 	return u, v
 }
 
-// splat returns the pixel offsets covered by one point: single pixels for big
-// maps, small discs for small ones, the radius scaled to a plot of w×h pixels.
-func splat(n, w, h int) []image.Point {
+// splat returns the pixel offsets covered by one point: a disc of the given
+// diameter, or by default single pixels for big maps and small discs for
+// small ones, the radius scaled to a plot of w×h pixels.
+func splat(n int, diameter float64, w, h int) []image.Point {
 	radius := 0
 	switch {
+	case diameter > 0:
+		radius = int(math.Round((diameter - 1) / 2))
 	case n <= 5_000:
 		radius = 3
 	case n <= 20_000:
@@ -260,7 +230,9 @@ func splat(n, w, h int) []image.Point {
 	case n <= 150_000:
 		radius = 1
 	}
-	radius = (radius*min(w, h) + 700) / 1400 // scaled to the plot, rounded
+	if diameter == 0 {
+		radius = (radius*min(w, h) + 700) / 1400 // scaled to the plot, rounded
+	}
 	var disc []image.Point
 	for dy := -radius; dy <= radius; dy++ {
 		for dx := -radius; dx <= radius; dx++ {
@@ -306,22 +278,23 @@ func (px *pixels) add(u, v int, disc []image.Point, c color.RGBA) {
 // the count at which a pixel becomes fully opaque, so the picture adapts to its
 // own density.
 func (px *pixels) fullCount() int {
-	hist := map[int]int{}
+	var hist []int
 	nonEmpty := 0
 	for _, c := range px.count {
 		if c > 0 {
-			hist[int(c)]++
+			for int(c) >= len(hist) {
+				hist = append(hist, 0)
+			}
+			hist[c]++
 			nonEmpty++
 		}
 	}
-	keys := make([]int, 0, len(hist))
-	for k := range hist {
-		keys = append(keys, k)
-	}
-	slices.Sort(keys)
 	ref, seen := 1, 0
-	for _, k := range keys {
-		seen += hist[k]
+	for k, h := range hist {
+		if h == 0 {
+			continue
+		}
+		seen += h
 		ref = k
 		if float64(seen) >= 0.95*float64(nonEmpty) {
 			break
@@ -330,10 +303,11 @@ func (px *pixels) fullCount() int {
 	return ref
 }
 
-// paint blends each non-empty pixel's mean colour over white into img, with its
-// top-left corner at origin: opacity follows a log curve of the count, from
-// minAlpha for one point to 1 at fullCount.
-func (px *pixels) paint(img *image.RGBA, origin image.Point) {
+// paint blends each non-empty pixel's mean colour over img, with its top-left
+// corner at origin. With opacity 0 the opacity follows a log curve of the
+// count, from minAlpha for one point to 1 at fullCount; otherwise c points
+// have opacity 1 − (1 − opacity)^c.
+func (px *pixels) paint(img *image.RGBA, origin image.Point, opacity float64) {
 	const minAlpha = 0.3
 	logRef := math.Log1p(float64(px.fullCount()))
 	for b := range px.h {
@@ -343,13 +317,18 @@ func (px *pixels) paint(img *image.RGBA, origin image.Point) {
 			if c == 0 {
 				continue
 			}
-			alpha := minAlpha + (1-minAlpha)*math.Log1p(float64(c))/logRef
-			alpha = math.Min(1, alpha)
-			mix := func(s uint64) uint8 {
-				v := 255*(1-alpha) + float64(s)/float64(c)*alpha
+			var alpha float64
+			if opacity > 0 {
+				alpha = 1 - math.Pow(1-opacity, float64(c))
+			} else {
+				alpha = math.Min(1, minAlpha+(1-minAlpha)*math.Log1p(float64(c))/logRef)
+			}
+			under := img.RGBAAt(origin.X+a, origin.Y+b)
+			mix := func(s uint64, bg uint8) uint8 {
+				v := float64(bg)*(1-alpha) + float64(s)/float64(c)*alpha
 				return uint8(math.Round(math.Min(255, math.Max(0, v))))
 			}
-			img.SetRGBA(origin.X+a, origin.Y+b, color.RGBA{mix(px.sum[3*p]), mix(px.sum[3*p+1]), mix(px.sum[3*p+2]), 0xff})
+			img.SetRGBA(origin.X+a, origin.Y+b, color.RGBA{mix(px.sum[3*p], under.R), mix(px.sum[3*p+1], under.G), mix(px.sum[3*p+2], under.B), 0xff})
 		}
 	}
 }

@@ -28,10 +28,20 @@ func blobs(n, g int, seed uint64) ([]float64, []string) {
 	return y, labels
 }
 
+// labelled is the map of y coloured by labels (nil: uncoloured).
+func labelled(y []float64, dims int, labels []string) Map {
+	return Map{Y: y, Dims: dims, Colour: Categories("group", labels)}
+}
+
 func render(t *testing.T, y []float64, dims int, labels []string, opt MapOptions) ([]byte, *image.RGBA) {
 	t.Helper()
+	return renderMap(t, labelled(y, dims, labels), opt)
+}
+
+func renderMap(t *testing.T, m Map, opt MapOptions) ([]byte, *image.RGBA) {
+	t.Helper()
 	var buf bytes.Buffer
-	if err := DrawMap(&buf, y, dims, labels, opt); err != nil {
+	if _, err := DrawMap(&buf, m, opt); err != nil {
 		t.Fatalf("DrawMap: %v", err)
 	}
 	img, err := png.Decode(bytes.NewReader(buf.Bytes()))
@@ -69,7 +79,7 @@ func TestDrawMapSizesAndLegend(t *testing.T) {
 	}{
 		{"default size", 2000, 5, MapOptions{}, 1600, 1600, 5},
 		{"wide", 500, 3, MapOptions{Width: 1000, Height: 700, Title: "wide"}, 1000, 700, 3},
-		{"many labels cycle colours", 3000, 25, MapOptions{Width: 800, Height: 800}, 800, 800, 25},
+		{"many labels cycle colours", 3000, 30, MapOptions{Width: 800, Height: 800}, 800, 800, 30},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -78,13 +88,19 @@ func TestDrawMapSizesAndLegend(t *testing.T) {
 			if b := img.Bounds(); b.Dx() != tc.wantW || b.Dy() != tc.wantH {
 				t.Fatalf("picture is %d×%d, want %d×%d", b.Dx(), b.Dy(), tc.wantW, tc.wantH)
 			}
-			leg := Legend(labels)
+			leg, codes := Legend(labels)
 			if len(leg) != tc.wantLegend {
 				t.Fatalf("legend has %d entries, want %d", len(leg), tc.wantLegend)
+			}
+			for i, l := range labels {
+				if leg[codes[i]].Label != l {
+					t.Fatalf("point %d has code %d (%q), want its label %q", i, codes[i], leg[codes[i]].Label, l)
+				}
 			}
 			// Every legend swatch is drawn in its exact colour (points are blended
 			// with white, swatches are not).
 			have := colours(img)
+			palette := Palette()
 			for _, e := range leg[:min(len(leg), len(palette))] {
 				if have[e.Colour] < 25 {
 					t.Errorf("colour %v of label %q found on %d pixels, want a swatch", e.Colour, e.Label, have[e.Colour])
@@ -138,7 +154,7 @@ func TestDrawMap3DUsesFirstTwoAxes(t *testing.T) {
 	for yy := range 600 {
 		for xx := range 600 {
 			if a.RGBAAt(xx, yy) != b.RGBAAt(xx, yy) {
-				if yy < 70 {
+				if yy < 110 {
 					diffHeader++
 				} else {
 					diffBody++
@@ -169,15 +185,18 @@ func TestDrawMapDensityShading(t *testing.T) {
 	}
 	_, img := render(t, y, 2, nil, MapOptions{Width: 600, Height: 600})
 	darkest, lightest := 255, 0
-	for c := range colours(img) {
-		if c.R == 255 || c.R == 0xb0 || c.R == 0x20 || c.R == 0x60 { // background, frame, text
-			continue
+	for yy := 120; yy < 600; yy++ { // below the header's text
+		for xx := range 600 {
+			c := img.RGBAAt(xx, yy)
+			if c == Paper || c == Frame {
+				continue
+			}
+			darkest = min(darkest, int(c.R))
+			lightest = max(lightest, int(c.R))
 		}
-		darkest = min(darkest, int(c.R))
-		lightest = max(lightest, int(c.R))
 	}
-	if darkest != int(unlabelled.R) {
-		t.Errorf("crowded pixel has grey %d, want the full point colour %d", darkest, unlabelled.R)
+	if darkest != int(Plain.R) {
+		t.Errorf("crowded pixel has grey %d, want the full point colour %d", darkest, Plain.R)
 	}
 	if lightest < darkest+40 {
 		t.Errorf("lightest point pixel has grey %d, want lone points clearly fainter than crowded ones (%d)", lightest, darkest)
@@ -198,10 +217,12 @@ func TestDrawMapErrors(t *testing.T) {
 		{"labels", make([]float64, 6), 2, []string{"a"}, MapOptions{}, "1 labels for 3 points"},
 		{"nan", []float64{0, 0, math.NaN(), 1}, 2, nil, MapOptions{}, "point 1 has a non-finite"},
 		{"tiny", make([]float64, 4), 2, nil, MapOptions{Width: 100}, "smaller than 400"},
+		{"point size", make([]float64, 4), 2, nil, MapOptions{PointSize: -1}, "point size -1"},
+		{"opacity", make([]float64, 4), 2, nil, MapOptions{Opacity: 1.5}, "opacity 1.5"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			err := DrawMap(&bytes.Buffer{}, tc.y, tc.dims, tc.labels, tc.opt)
+			_, err := DrawMap(&bytes.Buffer{}, labelled(tc.y, tc.dims, tc.labels), tc.opt)
 			if err == nil || !strings.Contains(err.Error(), tc.want) {
 				t.Fatalf("error %v, want one containing %q", err, tc.want)
 			}
@@ -226,13 +247,14 @@ func ExampleDrawMap() {
 	y := []float64{0, 0, 1, 0, 5, 5, 6, 5}
 	labels := []string{"north", "north", "south", "south"}
 	var buf bytes.Buffer
-	if err := DrawMap(&buf, y, 2, labels, MapOptions{Width: 500, Height: 400, Title: "two pairs"}); err != nil {
+	m := Map{Y: y, Dims: 2, Colour: Categories("side", labels)}
+	if _, err := DrawMap(&buf, m, MapOptions{Width: 500, Height: 400, Title: "two pairs"}); err != nil {
 		fmt.Println(err)
 		return
 	}
 	cfg, _ := png.DecodeConfig(&buf)
 	fmt.Println(cfg.Width, cfg.Height)
-	for _, e := range Legend(labels) {
+	for _, e := range m.Colour.Groups {
 		fmt.Println(e.Label, e.Count)
 	}
 	// Output:
@@ -243,8 +265,9 @@ func ExampleDrawMap() {
 
 func BenchmarkDrawMapMillion(b *testing.B) {
 	y, labels := blobs(1_000_000, 12, 1)
+	m := labelled(y, 2, labels)
 	for b.Loop() {
-		if err := DrawMap(io.Discard, y, 2, labels, MapOptions{}); err != nil {
+		if _, err := DrawMap(io.Discard, m, MapOptions{}); err != nil {
 			b.Fatal(err)
 		}
 	}

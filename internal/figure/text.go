@@ -4,111 +4,193 @@ import (
 	"fmt"
 	"image"
 	"image/color"
+	"image/draw"
+	"slices"
 	"strconv"
 	"strings"
+	"unicode"
 
+	"codeberg.org/go-fonts/liberation/liberationsansbold"
+	"codeberg.org/go-fonts/liberation/liberationsansregular"
 	"golang.org/x/image/font"
-	"golang.org/x/image/font/basicfont"
+	"golang.org/x/image/font/opentype"
+	"golang.org/x/image/font/sfnt"
 	"golang.org/x/image/math/fixed"
 )
 
-// Colours of the text and the plot's frame.
+// The figures' shared style: Liberation Sans (Latin, Greek and Cyrillic),
+// dark ink for titles and labels, a softer grey for notes, a light frame.
 var (
-	ink   = color.RGBA{0x20, 0x20, 0x20, 0xff}
-	soft  = color.RGBA{0x60, 0x60, 0x60, 0xff}
-	frame = color.RGBA{0xb0, 0xb0, 0xb0, 0xff}
+	Ink   = color.RGBA{0x1f, 0x1f, 0x1f, 0xff}
+	Soft  = color.RGBA{0x5c, 0x5c, 0x5c, 0xff}
+	Frame = color.RGBA{0xc4, 0xc4, 0xc4, 0xff}
+	Paper = color.RGBA{0xff, 0xff, 0xff, 0xff}
 )
 
-// legendChars is the longest label shown in the legend, in characters.
-const legendChars = 30
+// The fonts, parsed once.
+var (
+	regular = mustParse(liberationsansregular.TTF)
+	bold    = mustParse(liberationsansbold.TTF)
+)
 
-// layout holds the text metrics of a picture W×H pixels.
-type layout struct {
-	h      int // picture height
-	scale  int // text scale: 7×13 glyphs are tiny on a big picture
-	lineH  int // line height
-	margin int
+func mustParse(ttf []byte) *opentype.Font {
+	f, err := opentype.Parse(ttf)
+	if err != nil {
+		panic(fmt.Sprintf("figure: the embedded font does not parse: %v", err))
+	}
+	return f
 }
 
-func newLayout(w, h int) layout {
-	scale := max(1, min(w, h)/800)
-	return layout{h: h, scale: scale, lineH: 16 * scale, margin: 12 * scale}
+// style is a font, a size in pixels and a colour.
+type style struct {
+	font   *opentype.Font
+	px     float64
+	colour color.RGBA
 }
 
-// header draws the title, the optional caption, the facts of the map and the
-// reminder of what a t-SNE map shows, and returns the y where the plot starts.
-func (ly layout) header(img *image.RGBA, title, caption string, n, dims int) int {
-	ty := ly.margin
-	drawText(img, ly.margin, ty, title, ink, ly.scale)
-	ty += ly.lineH
-	if caption != "" {
-		drawText(img, ly.margin, ty, caption, soft, ly.scale)
-		ty += ly.lineH
-	}
-	facts := fmt.Sprintf("N = %s points, %d-D map", thousands(n), dims)
-	if dims == 3 {
-		facts += ": showing axes 1 and 2 only"
-	}
-	drawText(img, ly.margin, ty, facts, soft, ly.scale)
-	ty += ly.lineH
-	drawText(img, ly.margin, ty, "Cluster sizes and distances between clusters carry little meaning in a t-SNE map.", soft, ly.scale)
-	return ty + ly.lineH + ly.margin/2
+// typesetter draws text in the figures' fonts and remembers the characters
+// the fonts lack (drawn as boxes). Not safe for concurrent use.
+type typesetter struct {
+	faces   map[style]font.Face
+	missing map[rune]bool
+	buf     sfnt.Buffer
 }
 
-// legendWidth returns the width of the legend column on the right of a picture
-// w pixels wide (0 without a legend).
-func (ly layout) legendWidth(legend []LegendEntry, w int) int {
-	if legend == nil {
-		return 0
-	}
-	longest := 0
-	for _, e := range legend {
-		longest = max(longest, len(legendText(e, legendChars)))
-	}
-	longest = max(longest, 22) // room for the notes
-	return min(12*ly.scale+6*ly.scale+longest*7*ly.scale+ly.margin, w/3)
+func newTypesetter() *typesetter {
+	return &typesetter{faces: map[style]font.Face{}, missing: map[rune]bool{}}
 }
 
-// legend draws the legend from (lx, ly0) down: a note when colours repeat, one
-// swatch and line per label while they fit, then how many labels are left out.
-func (ly layout) legend(img *image.RGBA, legend []LegendEntry, lx, ly0 int) {
-	y := ly0
-	if len(legend) > len(palette) {
-		drawText(img, lx, y, fmt.Sprintf("%d labels, %d colours:", len(legend), len(palette)), soft, ly.scale)
-		y += ly.lineH
-		drawText(img, lx, y, "colours repeat", soft, ly.scale)
-		y += ly.lineH
+// face returns the face of st, made once.
+func (ts *typesetter) face(st style) font.Face {
+	key := style{font: st.font, px: st.px}
+	if f, ok := ts.faces[key]; ok {
+		return f
 	}
-	fit := (ly.h - ly.margin - y) / ly.lineH
-	shown := len(legend)
-	if shown > fit {
-		shown = max(0, fit-1)
+	// At 72 DPI a size in points is a size in pixels.
+	f, err := opentype.NewFace(st.font, &opentype.FaceOptions{Size: st.px, DPI: 72, Hinting: font.HintingFull})
+	if err != nil {
+		panic(fmt.Sprintf("figure: font face of %g px: %v", st.px, err))
 	}
-	sw := 10 * ly.scale
-	for _, e := range legend[:shown] {
-		for dy := range sw {
-			for dx := range sw {
-				img.SetRGBA(lx+dx, y+(ly.lineH-sw)/2+dy-ly.scale, e.Colour)
-			}
+	ts.faces[key] = f
+	return f
+}
+
+// has tells whether the font of st has a glyph for r.
+func (ts *typesetter) has(st style, r rune) bool {
+	g, err := st.font.GlyphIndex(&ts.buf, r)
+	return err == nil && g != 0
+}
+
+// clean replaces control characters by spaces: a label is one line.
+func clean(s string) string {
+	return strings.Map(func(r rune) rune {
+		if unicode.IsControl(r) {
+			return ' '
 		}
-		drawText(img, lx+sw+6*ly.scale, y, legendText(e, legendChars), ink, ly.scale)
-		y += ly.lineH
+		return r
+	}, s)
+}
+
+// boxWidth is the advance of the box drawn for a missing character.
+func boxWidth(px float64) fixed.Int26_6 { return fixed.Int26_6(0.6 * px * 64) }
+
+// width returns the advance of s in pixels.
+func (ts *typesetter) width(s string, st style) int {
+	f := ts.face(st)
+	var w fixed.Int26_6
+	prev := rune(-1)
+	for _, r := range clean(s) {
+		if !ts.has(st, r) {
+			w += boxWidth(st.px)
+			prev = -1
+			continue
+		}
+		if prev >= 0 {
+			w += f.Kern(prev, r)
+		}
+		adv, _ := f.GlyphAdvance(r)
+		w += adv
+		prev = r
 	}
-	if shown < len(legend) {
-		drawText(img, lx, y, fmt.Sprintf("... and %d more labels", len(legend)-shown), soft, ly.scale)
+	return w.Ceil()
+}
+
+// draw writes s on img with its top-left corner at (x, y) and returns the
+// x after it. Glyphs are drawn as a font.Drawer draws them (kerning
+// included); a character the font lacks is drawn as an empty box the size of
+// a capital letter and recorded.
+func (ts *typesetter) draw(img draw.Image, x, y int, s string, st style) int {
+	f := ts.face(st)
+	src := image.NewUniform(st.colour)
+	m := f.Metrics()
+	dot := fixed.Point26_6{X: fixed.I(x), Y: fixed.I(y) + m.Ascent}
+	prev := rune(-1)
+	for _, r := range clean(s) {
+		if !ts.has(st, r) {
+			ts.missing[r] = true
+			ts.box(img, dot, st)
+			dot.X += boxWidth(st.px)
+			prev = -1
+			continue
+		}
+		if prev >= 0 {
+			dot.X += f.Kern(prev, r)
+		}
+		dr, mask, mp, adv, ok := f.Glyph(dot, r)
+		if ok {
+			draw.DrawMask(img, dr, src, image.Point{}, mask, mp, draw.Over)
+		}
+		dot.X += adv
+		prev = r
+	}
+	return dot.X.Ceil()
+}
+
+// box draws the outline of a missing character's box at dot (on the
+// baseline).
+func (ts *typesetter) box(img draw.Image, dot fixed.Point26_6, st style) {
+	x0 := dot.X.Round() + int(0.08*st.px+0.5)
+	x1 := dot.X.Round() + int(0.52*st.px+0.5)
+	y1 := dot.Y.Round() - 1
+	y0 := y1 - int(0.68*st.px+0.5)
+	for x := x0; x <= x1; x++ {
+		img.Set(x, y0, st.colour)
+		img.Set(x, y1, st.colour)
+	}
+	for y := y0; y <= y1; y++ {
+		img.Set(x0, y, st.colour)
+		img.Set(x1, y, st.colour)
 	}
 }
 
-// legendText is "label (count)" with the label cut to maxChars characters.
-func legendText(e LegendEntry, maxChars int) string {
-	l := e.Label
-	if len(l) > maxChars {
-		l = l[:maxChars-3] + "..."
+// fit returns s, cut and ended with "…" if needed so that it is at most w
+// pixels wide.
+func (ts *typesetter) fit(s string, w int, st style) string {
+	s = clean(s)
+	if ts.width(s, st) <= w {
+		return s
 	}
-	if l == "" {
-		l = "(empty)"
+	rs := []rune(s)
+	lo, hi := 0, len(rs)
+	for lo < hi {
+		mid := (lo + hi + 1) / 2
+		if ts.width(string(rs[:mid])+"…", st) <= w {
+			lo = mid
+		} else {
+			hi = mid - 1
+		}
 	}
-	return fmt.Sprintf("%s (%s)", l, thousands(e.Count))
+	return string(rs[:lo]) + "…"
+}
+
+// lacking returns the characters drawn as boxes so far, in order.
+func (ts *typesetter) lacking() []rune {
+	out := make([]rune, 0, len(ts.missing))
+	for r := range ts.missing {
+		out = append(out, r)
+	}
+	slices.Sort(out)
+	return out
 }
 
 // thousands formats n with commas between groups of three digits.
@@ -131,33 +213,5 @@ func thousands(n int) string {
 	return b.String()
 }
 
-// drawText writes s with its top-left corner at (x, y), each font pixel drawn
-// as a scale×scale square. Characters outside printable ASCII become '?'.
-func drawText(img *image.RGBA, x, y int, s string, c color.RGBA, scale int) {
-	s = strings.Map(func(r rune) rune {
-		if r < 0x20 || r > 0x7e {
-			return '?'
-		}
-		return r
-	}, s)
-	face := basicfont.Face7x13
-	mask := image.NewAlpha(image.Rect(0, 0, face.Advance*len(s)+1, face.Height))
-	d := font.Drawer{Dst: mask, Src: image.Opaque, Face: face, Dot: fixed.P(0, face.Ascent)}
-	d.DrawString(s)
-	b := img.Bounds()
-	for my := range mask.Rect.Dy() {
-		for mx := range mask.Rect.Dx() {
-			if mask.AlphaAt(mx, my).A < 128 {
-				continue
-			}
-			for sy := range scale {
-				for sx := range scale {
-					p := image.Point{x + mx*scale + sx, y + my*scale + sy}
-					if p.In(b) {
-						img.SetRGBA(p.X, p.Y, c)
-					}
-				}
-			}
-		}
-	}
-}
+// Thousands formats n with commas between groups of three digits.
+func Thousands(n int) string { return thousands(n) }
