@@ -66,6 +66,9 @@ type (
 	TooLargeError = knn.TooLargeError
 	// CorruptError reports a damaged run-directory file.
 	CorruptError = checkpoint.CorruptError
+	// HeldError reports a run directory that another live process writes
+	// into, naming it.
+	HeldError = checkpoint.HeldError
 )
 
 // IsUserFault tells whether err is the caller's to fix — bad input, a bad
@@ -83,8 +86,9 @@ func IsUserFault(err error) bool {
 		magic *checkpoint.MagicError
 		big   *knn.TooLargeError
 		zero  *knn.ZeroRowError
+		held  *checkpoint.HeldError
 	)
 	return errors.As(err, &set) || errors.As(err, &dir) || errors.As(err, &in) || errors.As(err, &perp) ||
 		errors.As(err, &bad) || errors.As(err, &ver) || errors.As(err, &kind) || errors.As(err, &magic) ||
-		errors.As(err, &big) || errors.As(err, &zero)
+		errors.As(err, &big) || errors.As(err, &zero) || errors.As(err, &held)
 }

@@ -129,6 +129,11 @@ func (j *job) saveState(opt *gradient.Optimizer, secs float64, iters int) error 
 	if err := j.run.SaveState(st.Iteration, stateSections(st, j.s.Seed)); err != nil {
 		return fmt.Errorf("writing a checkpoint: %w", err)
 	}
+	if j.lock != nil {
+		if err := j.lock.Beat(); err != nil {
+			j.obs.Warn(err.Error())
+		}
+	}
 	j.mu.Lock()
 	defer j.mu.Unlock()
 	m := j.run.Manifest()

@@ -14,6 +14,7 @@ import (
 func (j *job) finish(y []float64) error {
 	t := j.table
 	t0 := time.Now()
+	j.setStatus(checkpoint.StatusRunning, checkpoint.PhaseOutputs)
 	if err := checkpoint.AtomicWrite(j.run.Path(FileEmbedding), func(w io.Writer) error {
 		return ingest.WriteEmbedding(w, t.ID, t.Label, y, j.s.Dims)
 	}); err != nil {
@@ -28,6 +29,12 @@ func (j *job) finish(y []float64) error {
 	}
 	j.rep.Phases["outputs"] = time.Since(t0).Seconds()
 	j.rep.PhaseMemory["outputs"] = peakMemory()
+	if j.ctx.Err() != nil {
+		// Stopped before the scores: the outputs are redone on resume,
+		// from the last checkpoint (the optimiser repeats its last
+		// iterations to the same bits).
+		return j.stopped(j.rep.Optimiser.Iterations, false)
+	}
 	if j.rt.ScoreSample > 0 {
 		t1 := time.Now()
 		j.obs.Note(fmt.Sprintf("scoring the map on %d sampled rows", min(j.rt.ScoreSample, t.N)))

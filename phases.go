@@ -72,6 +72,12 @@ func (j *job) readInput(resumed bool) error {
 	j.run.Manifest().Input = fp
 	j.mu.Unlock()
 	j.table = t
+	if t.D < j.s.Dims {
+		return &ingest.InputError{File: j.s.Input, Reason: fmt.Sprintf("the table has %d feature column(s) (%s); a %d-D map needs at least %d", t.D, strings.Join(t.Features, ", "), j.s.Dims, j.s.Dims)}
+	}
+	if err := checkTable(j.s, t); err != nil {
+		return err
+	}
 	if len(j.s.Features) == 0 {
 		for _, name := range idLikeColumns(t.Features) {
 			j.obs.Warn(fmt.Sprintf("feature column %q looks like a row identifier, and its values would weigh on every distance; if it is one, pass --id %s or choose the features with --features", name, name))
@@ -87,6 +93,29 @@ func (j *job) readInput(resumed bool) error {
 	j.rep.Rows, j.rep.Features, j.rep.Skipped, j.rep.Format = t.N, t.D, t.Skipped, t.Format
 	j.rep.Phases["read"] = time.Since(t0).Seconds()
 	j.rep.PhaseMemory["read"] = peakMemory()
+	return nil
+}
+
+// checkTable refuses, before any work is done on it, a table too small for
+// the perplexity or, under the cosine metric, with an all-zero row.
+func checkTable(s Settings, t *ingest.Table) error {
+	if err := knn.CheckPerplexity(s.Perplexity, t.N); err != nil {
+		return fmt.Errorf("%s: %w", s.Input, err)
+	}
+	if m, _ := knn.ParseMetric(s.Metric); m == knn.Cosine {
+		for i := range t.N {
+			zero := true
+			for _, v := range t.Row(i) {
+				if v != 0 {
+					zero = false
+					break
+				}
+			}
+			if zero {
+				return fmt.Errorf("%s: %w (cosine distance needs a non-zero row)", s.Input, &knn.ZeroRowError{Row: i})
+			}
+		}
+	}
 	return nil
 }
 

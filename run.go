@@ -5,7 +5,10 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"os"
+	"path/filepath"
 	"runtime/debug"
+	"strings"
 	"sync"
 	"time"
 
@@ -36,11 +39,17 @@ type Result struct {
 	AlreadyFinished bool
 }
 
-// Embed creates the run directory dir (it must not exist, or be empty),
+// Embed creates the run directory dir (it must not exist, be empty, or hold
+// only a run that never finished reading its input, which is replaced),
 // records the settings and the source in its manifest, and runs every
 // phase: read the table, find each row's neighbours, calibrate the
 // affinities, optimise the map with checkpoints, write embedding.parquet,
 // map.png and report.json.
+//
+// One process at a time writes into a run directory: Embed takes its writer
+// lock first and returns a *checkpoint.HeldError (a user fault) naming the
+// holder when another live process has it. The first manifest written is
+// complete (settings, input fingerprint, run id).
 //
 // Cancelling ctx stops the run: in the optimiser after the current
 // iteration, with a checkpoint written; before it at once, the phase under
@@ -48,8 +57,22 @@ type Result struct {
 // the run. obs receives progress and may be nil. Errors the caller can fix
 // satisfy IsUserFault.
 func Embed(ctx context.Context, src Source, dir string, s Settings, rt Runtime, obs Observer) (*Result, error) {
+	return embed(ctx, src, dir, s, rt, obs, false)
+}
+
+// EmbedOrResume is Embed for a job that a batch scheduler may start again
+// and again: it starts the run if dir holds none, continues it if dir holds
+// the same run (the same settings; Resume then checks the input's
+// fingerprint), and refuses with a *RunDirError naming a difference if the
+// settings differ. With an in-memory source, the copy of the table saved in
+// the run directory is the one used, and only the settings are compared.
+func EmbedOrResume(ctx context.Context, src Source, dir string, s Settings, rt Runtime, obs Observer) (*Result, error) {
+	return embed(ctx, src, dir, s, rt, obs, true)
+}
+
+func embed(ctx context.Context, src Source, dir string, s Settings, rt Runtime, obs Observer, again bool) (*Result, error) {
 	obs = observerOrQuiet(obs)
-	if err := rt.Validate(); err != nil {
+	if err := rt.fill(nil); err != nil {
 		return nil, err
 	}
 	s.Input = "-" // checked after the source is resolved
@@ -60,9 +83,39 @@ func Embed(ctx context.Context, src Source, dir string, s Settings, rt Runtime, 
 	if err := src.check(); err != nil {
 		return nil, err
 	}
-	run, err := checkpoint.Create(dir)
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return nil, &RunDirError{Dir: dir, Msg: errorText(err)}
+	}
+	lock, err := checkpoint.AcquireLock(dir)
+	if err != nil {
+		return nil, err
+	}
+	defer lock.Release()
+	if _, err := os.Stat(filepath.Join(dir, checkpoint.ManifestName)); err == nil {
+		run, err := checkpoint.Open(dir)
+		switch {
+		case err == nil && neverRead(run):
+			obs.Note(fmt.Sprintf("%s holds a run that never finished reading its input; replacing it", dir))
+			if err := clearRun(run); err != nil {
+				return nil, err
+			}
+		case err == nil && again:
+			if err := sameSettings(run, src, s); err != nil {
+				return nil, err
+			}
+			return resumeLocked(ctx, run, lock, rt, obs)
+		case err == nil:
+			return nil, &RunDirError{Dir: dir, Msg: "already holds a run; continue it with 'nightjar resume " + dir + "', or choose another directory"}
+		default:
+			return nil, &RunDirError{Dir: dir, Msg: errorText(err)}
+		}
+	}
+	run, err := checkpoint.CreateFS(dir, rt.FS)
 	if err != nil {
 		return nil, &RunDirError{Dir: dir, Msg: errorText(err)}
+	}
+	if err := run.RemoveTemporaries(); err != nil {
+		return nil, err
 	}
 	path, id, label, err := src.resolve(run.Dir, obs)
 	if err != nil {
@@ -75,35 +128,118 @@ func Embed(ctx context.Context, src Source, dir string, s Settings, rt Runtime, 
 	if label != "" {
 		s.Label = label
 	}
+	fp, err := checkpoint.FingerprintFile(s.Input)
+	if err != nil {
+		return nil, &ingest.InputError{File: s.Input, Reason: errorText(err), Err: err}
+	}
 	params, err := json.Marshal(s)
 	if err != nil {
 		return nil, fmt.Errorf("encoding settings: %w", err)
 	}
 	m := run.Manifest()
 	m.Tool, m.Version = "nightjar", Version
-	m.Params = params
+	m.Params, m.Input, m.Runtime = params, fp, rt.kept()
 	m.Phase, m.Status = checkpoint.PhaseCreated, checkpoint.StatusRunning
 	m.Iterations = s.Iterations
 	if err := run.SaveManifest(m); err != nil {
 		return nil, err
 	}
-	return execute(ctx, run, s, rt, false, obs)
+	return execute(ctx, run, lock, s, rt, false, obs)
+}
+
+// neverRead tells whether a run stopped before it finished reading its
+// input: nothing computed from the input was saved, so it can be replaced.
+func neverRead(run *checkpoint.Run) bool {
+	m := run.Manifest()
+	return m.Input.ValuesHash == "" && m.Status != checkpoint.StatusFinished
+}
+
+// clearRun removes a run's manifest and the files it saved, keeping the
+// directory and its lock.
+func clearRun(run *checkpoint.Run) error {
+	entries, err := os.ReadDir(run.Dir)
+	if err != nil {
+		return fmt.Errorf("listing %s: %w", run.Dir, err)
+	}
+	for _, e := range entries {
+		n := e.Name()
+		if n == checkpoint.LockName || n == checkpoint.HolderName || !e.Type().IsRegular() {
+			continue
+		}
+		if n == checkpoint.ManifestName || n == checkpoint.PrevManifestName || strings.HasSuffix(n, checkpoint.Extension) ||
+			n == FileEmbedding || n == FileMap || n == FileReport {
+			if err := os.Remove(filepath.Join(run.Dir, n)); err != nil {
+				return fmt.Errorf("replacing the run in %s: %w", run.Dir, err)
+			}
+		}
+	}
+	return nil
+}
+
+// sameSettings refuses to continue a run whose recorded settings differ
+// from s (the input path and, for an in-memory source, the id and label
+// columns come from the source and are not compared).
+func sameSettings(run *checkpoint.Run, src Source, s Settings) error {
+	old, err := settingsOf(run)
+	if err != nil {
+		return err
+	}
+	if src.path != "" {
+		abs, err := filepath.Abs(src.path)
+		if err != nil {
+			return err
+		}
+		s.Input = abs
+	} else {
+		s.Input, s.ID, s.Label = old.Input, old.ID, old.Label
+	}
+	for _, o := range SettingOptions() {
+		a, _ := old.Get(o.Name)
+		b, _ := s.Get(o.Name)
+		if a != b {
+			if o.Name == "input" {
+				return &RunDirError{Dir: run.Dir, Msg: fmt.Sprintf("holds a run of another input (%s, not %s); choose another directory, or continue it with 'nightjar resume %s --input %s' if the file moved", a, b, run.Dir, b)}
+			}
+			return &RunDirError{Dir: run.Dir, Msg: fmt.Sprintf("holds a run with other settings (--%s %s, not %s); choose another directory, or continue it as it is with 'nightjar resume %s'", o.Name, a, b, run.Dir)}
+		}
+	}
+	return nil
 }
 
 // Resume continues the run in dir from its newest valid checkpoint,
 // skipping the phases whose results are saved. A resumed run ends with the
-// same bits as one never interrupted. It refuses (a *RunDirError) if the
-// input changed since the run began, unless rt.Force. On a finished run it
+// same bits as one never interrupted. It takes the run's writer lock (see
+// Embed). It refuses (a *RunDirError) if the input changed since the run
+// began, unless rt.Force; rt.Input gives the input's new location if it
+// moved (its values must be the same). Checkpoint cadences that rt leaves
+// at 0 are those given when the run was created. On a finished run it
 // returns its report with AlreadyFinished set.
 func Resume(ctx context.Context, dir string, rt Runtime, obs Observer) (*Result, error) {
 	obs = observerOrQuiet(obs)
-	if err := rt.Validate(); err != nil {
+	if _, err := os.Stat(filepath.Join(dir, checkpoint.ManifestName)); err != nil {
+		return nil, &RunDirError{Dir: dir, Msg: "is not a run directory (no " + checkpoint.ManifestName + ")"}
+	}
+	lock, err := checkpoint.AcquireLock(dir)
+	if err != nil {
 		return nil, err
 	}
+	defer lock.Release()
 	run, err := checkpoint.Open(dir)
 	if err != nil {
 		return nil, &RunDirError{Dir: dir, Msg: errorText(err)}
 	}
+	return resumeLocked(ctx, run, lock, rt, obs)
+}
+
+// resumeLocked continues run, whose lock the caller holds.
+func resumeLocked(ctx context.Context, run *checkpoint.Run, lock *checkpoint.Lock, rt Runtime, obs Observer) (*Result, error) {
+	if run.Fallback != "" {
+		obs.Warn(run.Fallback)
+	}
+	if err := rt.fill(run.Manifest().Runtime); err != nil {
+		return nil, err
+	}
+	run.FS = rt.FS
 	m := run.Manifest()
 	if m.Status == checkpoint.StatusFinished {
 		res := newResult(run)
@@ -111,11 +247,27 @@ func Resume(ctx context.Context, dir string, rt Runtime, obs Observer) (*Result,
 		res.Report, _ = ReadReport(run.Path(FileReport))
 		return res, nil
 	}
+	if err := run.RemoveTemporaries(); err != nil {
+		return nil, err
+	}
 	s, err := settingsOf(run)
 	if err != nil {
 		return nil, err
 	}
-	return execute(ctx, run, s, rt, true, obs)
+	if rt.Input != "" {
+		abs, err := filepath.Abs(rt.Input)
+		if err != nil {
+			return nil, err
+		}
+		if _, err := os.Stat(abs); err != nil {
+			return nil, &ingest.InputError{File: rt.Input, Reason: errorText(err), Err: err}
+		}
+		if abs != s.Input {
+			obs.Note(fmt.Sprintf("reading the input from its new location %s (recorded: %s)", abs, s.Input))
+		}
+		s.Input = abs
+	}
+	return execute(ctx, run, lock, s, rt, true, obs)
 }
 
 // settingsOf decodes and checks the settings a run's manifest records.
@@ -139,6 +291,7 @@ func newResult(run *checkpoint.Run) *Result {
 type job struct {
 	ctx   context.Context
 	run   *checkpoint.Run
+	lock  *checkpoint.Lock
 	s     Settings
 	rt    Runtime
 	obs   Observer
@@ -152,8 +305,8 @@ type job struct {
 }
 
 // execute runs (or, when resumed, continues) every phase of a run.
-func execute(ctx context.Context, run *checkpoint.Run, s Settings, rt Runtime, resumed bool, obs Observer) (res *Result, err error) {
-	j := &job{ctx: ctx, run: run, s: s, rt: rt, obs: obs, start: time.Now()}
+func execute(ctx context.Context, run *checkpoint.Run, lock *checkpoint.Lock, s Settings, rt Runtime, resumed bool, obs Observer) (res *Result, err error) {
+	j := &job{ctx: ctx, run: run, lock: lock, s: s, rt: rt, obs: obs, start: time.Now()}
 	j.rep = newReport(s, rt)
 	defer func() {
 		if err != nil {

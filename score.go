@@ -3,6 +3,8 @@ package nightjar
 import (
 	"context"
 	"math"
+	"os"
+	"path/filepath"
 	"time"
 
 	"nightjar/checkpoint"
@@ -81,6 +83,16 @@ func Score(ctx context.Context, dir string, opt ScoreOptions) (*Quality, error) 
 	if opt.Sample < 1 || opt.K < 1 || opt.Threads < 1 {
 		return nil, &SettingError{Msg: "score: the sample, k and threads must be at least 1"}
 	}
+	if _, err := os.Stat(filepath.Join(dir, checkpoint.ManifestName)); err != nil {
+		return nil, &RunDirError{Dir: dir, Msg: "is not a run directory (no " + checkpoint.ManifestName + ")"}
+	}
+	// Score rewrites report.json: it takes the writer lock, so it never
+	// touches a live run.
+	lock, err := checkpoint.AcquireLock(dir)
+	if err != nil {
+		return nil, err
+	}
+	defer lock.Release()
 	run, err := checkpoint.Open(dir)
 	if err != nil {
 		return nil, &RunDirError{Dir: dir, Msg: errorText(err)}

@@ -1,10 +1,12 @@
 package nightjar
 
 import (
+	"encoding/json"
 	"fmt"
 	"math"
 	"strings"
 
+	"nightjar/checkpoint"
 	"nightjar/gradient"
 	"nightjar/knn"
 )
@@ -135,15 +137,19 @@ type Runtime struct {
 	Threads int `flag:"threads" help:"worker threads (the result is the same bits for any value)" topic:"running"`
 	// CheckpointEvery and CheckpointMinutes set how often the optimiser
 	// writes its state: every this many iterations, and at least every
-	// this many minutes.
-	CheckpointEvery   int     `flag:"checkpoint-every" help:"write the optimiser state every this many iterations" topic:"running"`
-	CheckpointMinutes float64 `flag:"checkpoint-minutes" help:"and at least every this many minutes" topic:"running"`
+	// this many minutes. The run keeps them for Resume, which uses them
+	// where its own Runtime leaves them at 0.
+	CheckpointEvery   int     `flag:"checkpoint-every" json:"checkpoint_every" help:"write the optimiser state every this many iterations" topic:"running"`
+	CheckpointMinutes float64 `flag:"checkpoint-minutes" json:"checkpoint_minutes" help:"and at least every this many minutes" topic:"running"`
 	// ScoreSample is the number of rows sampled for the quality scores of
 	// the report (0 = no scores).
 	ScoreSample int `flag:"score-sample" help:"rows sampled for the quality scores in the report (0 = none)" topic:"running"`
 	// Force lets Resume continue although the input changed since the run
 	// began.
 	Force bool `flag:"-"`
+	// Input is, for Resume, the new location of an input that moved; its
+	// values must be those the run began with.
+	Input string `flag:"-"`
 	// ReturnMemory lowers the garbage collector's target while the
 	// neighbours are searched and hands freed memory back to the operating
 	// system between phases. These are process-wide settings, so a library
@@ -151,12 +157,44 @@ type Runtime struct {
 	// them on. Measured at 1,000,000 demo rows: the peak resident memory
 	// went from 3.28 GB without to 2.81 GB with.
 	ReturnMemory bool `flag:"-"`
+	// FS is the file system the run directory is written through (nil: the
+	// operating system's); tests give one that fails or stops at a chosen
+	// write.
+	FS checkpoint.FS `flag:"-"`
 }
 
 // DefaultRuntime returns one thread, a checkpoint every 50 iterations and at
 // least every 10 minutes, and scores on 2,000 sampled rows.
 func DefaultRuntime() Runtime {
 	return Runtime{Threads: 1, CheckpointEvery: 50, CheckpointMinutes: 10, ScoreSample: 2000}
+}
+
+// keptRuntime is what a run directory keeps of the runtime options.
+type keptRuntime struct {
+	CheckpointEvery   int     `json:"checkpoint_every"`
+	CheckpointMinutes float64 `json:"checkpoint_minutes"`
+}
+
+// kept returns the JSON of the options a run keeps for its resumes.
+func (r *Runtime) kept() json.RawMessage {
+	b, _ := json.Marshal(keptRuntime{r.CheckpointEvery, r.CheckpointMinutes})
+	return b
+}
+
+// fill gives the checkpoint cadences left at 0 the values a run kept (or
+// the defaults), then validates.
+func (r *Runtime) fill(kept json.RawMessage) error {
+	k := keptRuntime{CheckpointEvery: DefaultRuntime().CheckpointEvery, CheckpointMinutes: DefaultRuntime().CheckpointMinutes}
+	if len(kept) > 0 {
+		_ = json.Unmarshal(kept, &k)
+	}
+	if r.CheckpointEvery == 0 {
+		r.CheckpointEvery = k.CheckpointEvery
+	}
+	if r.CheckpointMinutes == 0 {
+		r.CheckpointMinutes = k.CheckpointMinutes
+	}
+	return r.Validate()
 }
 
 // Validate checks the runtime options; errors are *SettingError.

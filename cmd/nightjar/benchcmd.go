@@ -83,7 +83,7 @@ func runBench(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if err != nil {
 		return fmt.Errorf("finding the nightjar binary: %w", err)
 	}
-	u := &ui{w: stderr, quiet: quiet}
+	u := newUI(stderr, quiet)
 	keys, combos := sweepCombos(vary, len(sizes) > 1)
 	meta := bench.Meta{Dataset: *data, Cores: runtime.NumCPU(), GoVersion: runtime.Version(), K: nightjar.ScoreK,
 		Date: time.Now().UTC().Format("2006-01-02"), Command: "nightjar bench " + strings.Join(args, " ")}

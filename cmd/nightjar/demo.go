@@ -28,28 +28,13 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	if *dir == "" {
 		*dir = freeDir("nightjar-demo")
 	}
-	u := &ui{w: stderr, quiet: quiet}
-	res, err := nightjar.Embed(ctx, nightjar.DemoSource(*rows, s.Seed, r.Threads), *dir, s, r, demoObserver{u})
+	u := newUI(stderr, quiet)
+	res, err := nightjar.Embed(ctx, nightjar.DemoSource(*rows, s.Seed, r.Threads), *dir, s, r, u)
 	if err != nil {
 		return err
 	}
 	printResult(stdout, res)
 	return nil
-}
-
-// demoObserver shows the line saying where the demo data went even in a
-// quiet run, as every demo has.
-type demoObserver struct{ *ui }
-
-func (d demoObserver) Note(text string) {
-	if len(text) > 5 && text[:5] == "demo:" {
-		d.ui.mu.Lock()
-		d.ui.closeLocked()
-		fmt.Fprintln(d.ui.w, text)
-		d.ui.mu.Unlock()
-		return
-	}
-	d.ui.Note(text)
 }
 
 // freeDir returns base, or base-2, base-3, … whichever does not exist yet.

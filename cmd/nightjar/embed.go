@@ -14,8 +14,9 @@ func runEmbed(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	s := nightjar.DefaultSettings()
 	r := defaultRuntime()
 	var quiet bool
-	fs := newFlags("embed", "map a feature table into a run directory (embedding.parquet, map.png, report.json)", embedExample, stderr)
-	runDir := fs.String("run", "", "run directory to create; it holds checkpoints and the outputs (required)")
+	fs := newFlags("embed", "map a feature table into a run directory (embedding.parquet, map.png, report.json)", embedExample, stderr, "input", "run")
+	runDir := fs.String("run", "", "run directory to create; it holds checkpoints and the outputs")
+	orContinue := fs.Bool("or-continue", false, "for batch jobs that may be started again: start the run, or continue it if the run directory already holds the same run (refused if its settings differ)")
 	addSettings(fs, &s)
 	addRuntime(fs, &r, &quiet)
 	if _, err := parseFlags(fs, args, 0); err != nil {
@@ -30,7 +31,11 @@ func runEmbed(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if err := s.Validate(); err != nil {
 		return err
 	}
-	res, err := nightjar.Embed(ctx, nightjar.FromFile(s.Input), *runDir, s, r, &ui{w: stderr, quiet: quiet})
+	embed := nightjar.Embed
+	if *orContinue {
+		embed = nightjar.EmbedOrResume
+	}
+	res, err := embed(ctx, nightjar.FromFile(s.Input), *runDir, s, r, newUI(stderr, quiet))
 	if err != nil {
 		return err
 	}
@@ -43,6 +48,9 @@ func runEmbed(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 func printResult(stdout io.Writer, res *nightjar.Result) {
 	fmt.Fprintf(stdout, "run:       %s\nembedding: %s\nmap:       %s\nreport:    %s\n",
 		res.Dir, res.Embedding, res.MapImage, res.Dir+"/"+nightjar.FileReport)
+	if res.AlreadyFinished {
+		fmt.Fprintf(stdout, "%s is finished already; nothing to do\n", res.Dir)
+	}
 	if res.Report != nil {
 		if q := res.Report.Quality; q != nil {
 			fmt.Fprintf(stdout, "quality:   trustworthiness@%d %.4f, neighbourhood kept@%d %.4f, KL %.4f\n", q.K, q.Trustworthiness, q.K, q.Preservation, q.KL)

@@ -9,7 +9,7 @@
 //	nightjar demo   [--rows N] [--run DIR]             map the built-in fictional survey
 //	nightjar resume DIR                                 continue an interrupted run
 //	nightjar status DIR [--json]                        where a run stands
-//	nightjar score  --run DIR                           (re)compute quality scores
+//	nightjar score  DIR                                 (re)compute quality scores
 //	nightjar bench  [options]                           accuracy-versus-speed sweeps
 //
 // Exit codes: 0 success; 1 internal failure; 2 bad input or usage; 130 and 143
@@ -75,7 +75,7 @@ func mainUsage(w io.Writer) {
 	for _, c := range commands() {
 		fmt.Fprintf(w, "  %-8s %s\n", c.name, c.summary)
 	}
-	fmt.Fprintln(w, "\nRun 'nightjar <command> --help' for the options of one command.")
+	fmt.Fprintln(w, "\nRun 'nightjar help <command>' for the options of one command; 'nightjar --version' for the version.")
 	fmt.Fprintln(w, "Caution: in a t-SNE map, cluster sizes and distances between clusters carry little meaning.")
 }
 
@@ -88,21 +88,32 @@ func main() {
 
 // signalContext returns a context cancelled by the first SIGINT or SIGTERM,
 // a function that tells which signal it was, and a function that stops
-// listening. After the first signal the default handling is restored, so a
-// second one ends the process at once.
+// listening. After the first signal a second SIGINT ends the process at
+// once (Ctrl-C twice), while a repeated SIGTERM is ignored: a batch
+// scheduler may send it both to the job's script and to nightjar, which is
+// then writing its checkpoint.
 func signalContext() (context.Context, func() syscall.Signal, func()) {
 	ctx, cancel := context.WithCancelCause(context.Background())
 	var got atomic.Int32
-	ch := make(chan os.Signal, 1)
+	ch := make(chan os.Signal, 2)
 	signal.Notify(ch, syscall.SIGINT, syscall.SIGTERM)
 	quit := make(chan struct{})
 	go func() {
-		select {
-		case s := <-ch:
-			got.Store(int32(s.(syscall.Signal)))
-			signal.Stop(ch)
-			cancel(fmt.Errorf("%v", s))
-		case <-quit:
+		for {
+			select {
+			case s := <-ch:
+				if got.CompareAndSwap(0, int32(s.(syscall.Signal))) {
+					cancel(fmt.Errorf("%v", s))
+					continue
+				}
+				if s == syscall.SIGINT {
+					signal.Reset(syscall.SIGINT)
+					_ = syscall.Kill(os.Getpid(), syscall.SIGINT)
+					return
+				}
+			case <-quit:
+				return
+			}
 		}
 	}()
 	return ctx, func() syscall.Signal { return syscall.Signal(got.Load()) }, func() { signal.Stop(ch); close(quit) }
@@ -111,12 +122,18 @@ func signalContext() (context.Context, func() syscall.Signal, func()) {
 // run dispatches to a sub-command and maps its error to an exit code. sig
 // tells which signal, if any, cancelled ctx.
 func run(ctx context.Context, args []string, stdout, stderr io.Writer, sig func() syscall.Signal) int {
+	if len(args) == 2 && args[0] == "help" {
+		args = []string{args[1], "--help"}
+	}
 	if len(args) == 0 || args[0] == "help" || args[0] == "-h" || args[0] == "--help" {
 		mainUsage(stdout)
 		if len(args) == 0 {
 			return exitBadInput
 		}
 		return exitOK
+	}
+	if args[0] == "--version" || args[0] == "-version" {
+		args[0] = "version"
 	}
 	for _, c := range commands() {
 		if c.name == args[0] {

@@ -112,7 +112,7 @@ func TestEmbedWritesOutputs(t *testing.T) {
 	if code != 0 || !strings.Contains(out, `"finished"`) {
 		t.Errorf("status: exit %d, %s %s", code, out, errs)
 	}
-	code, out, errs = runCLI("score", "--run", runDir, "--sample", "200")
+	code, out, errs = runCLI("score", runDir, "--sample", "200")
 	if code != 0 || !strings.Contains(out, "trustworthiness") {
 		t.Errorf("score: exit %d, %s %s", code, out, errs)
 	}
@@ -132,7 +132,7 @@ func TestHelpOnEverySubcommand(t *testing.T) {
 }
 
 // TestThreadsSameBits: the same seed gives the same bits with 1 and 2 threads
-// (the block-ordered reductions of DESIGN.md).
+// (the block-ordered reductions of internal/par).
 // Both the exact and the NN-descent neighbour searches are covered.
 func TestThreadsSameBits(t *testing.T) {
 	dir := t.TempDir()

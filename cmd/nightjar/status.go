@@ -31,19 +31,29 @@ func runStatus(_ context.Context, args []string, stdout, stderr io.Writer) error
 		return enc.Encode(st)
 	}
 	fmt.Fprintf(stdout, "run:        %s\ninput:      %s\nstatus:     %s (phase %s)\n", st.Dir, st.Input, st.Status, st.Phase)
+	if st.Holder != nil {
+		fmt.Fprintf(stdout, "process:    %s\n", st.Holder)
+	}
 	fmt.Fprintf(stdout, "iteration:  %d of %d\n", st.Iteration, st.Iterations)
 	if st.Iteration > 0 {
 		fmt.Fprintf(stdout, "KL:         %.4f\n", st.KL)
 	}
-	fmt.Fprintf(stdout, "elapsed:    %s (last update %s)\n", time.Duration(st.ElapsedSeconds*float64(time.Second)).Round(time.Second), st.Updated.Format(time.RFC3339))
+	if st.CheckpointAge >= 0 {
+		fmt.Fprintf(stdout, "checkpoint: %s ago\n", seconds(st.CheckpointAge))
+	}
+	fmt.Fprintf(stdout, "elapsed:    %s (last update %s)\n", seconds(st.ElapsedSeconds), st.Updated.Format(time.RFC3339))
 	if st.HasEstimateLeft {
-		fmt.Fprintf(stdout, "time left:  about %s for the optimiser at its measured pace\n", time.Duration(st.LeftSeconds*float64(time.Second)).Round(time.Second))
+		fmt.Fprintf(stdout, "time left:  about %s for the optimiser at its measured pace\n", seconds(st.LeftSeconds))
 	}
-	if st.ResumeCommand != "" {
-		fmt.Fprintf(stdout, "continue:   %s\n", st.ResumeCommand)
+	if st.Warning != "" {
+		fmt.Fprintf(stdout, "warning:    %s\n", st.Warning)
 	}
-	if st.Status == nightjar.StatusRunning {
-		fmt.Fprintf(stdout, "note:       if no nightjar process is working on this run any more, it was killed; continue it with: nightjar resume %s\n", st.Dir)
+	if st.Advice != "" {
+		fmt.Fprintf(stdout, "next:       %s\n", st.Advice)
 	}
 	return nil
+}
+
+func seconds(s float64) time.Duration {
+	return time.Duration(s * float64(time.Second)).Round(time.Second)
 }
