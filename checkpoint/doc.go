@@ -50,18 +50,49 @@
 // A run directory (see Run) holds
 //
 //	manifest.json          the manifest (ManifestName), replaced by SaveManifest
+//	manifest.prev.json     the manifest as it was before its last save
+//	                       (PrevManifestName), used when manifest.json fails
+//	                       its checksum or cannot be read
 //	NAME.njs               artifacts written by SaveArtifact(NAME, …); the
 //	                       nightjar command writes neighbours.njg.njs (the
-//	                       neighbour graph) and affinities.njp.njs (P)
+//	                       neighbour graph), affinities.njp.njs (P) and
+//	                       features.njs (the features the map was made from)
 //	state-NNNNNNNNN.njs    the two newest optimiser states (SaveState), NNNNNNNNN
 //	                       the nine-digit iteration number
+//	.lock, lock.json       the writer lock (LockName) and its record
+//	                       (HolderName: host, pid, start, heartbeat)
 //
 // and the final outputs the caller writes with AtomicWrite into Run.Path
-// (the nightjar command writes embedding.parquet, map.png and report.json).
-// Every file is written to a temporary name in the same directory
-// ("." + name + ".tmp-" + random digits), synced, renamed over the final
-// name, and the directory is synced, so a kill at any moment leaves either
-// the old or the new file; Open removes temporary files a kill left behind.
+// (the nightjar command writes embedding.parquet, map.png, map.html and
+// report.json). Every file is written to a temporary name in the same
+// directory ("." + name + ".tmp-" + random digits), synced, renamed over the
+// final name, and the directory is synced, so a kill at any moment leaves
+// either the old or the new file; the holder of the writer lock removes
+// temporary files a kill left behind (RemoveTemporaries), and nobody else
+// does, since another process's temporary may be a write in progress.
 // A Run writes its files through Run.FS (OSFS by default), which tests
 // replace to make a step fail or stop.
+//
+// # Manifest
+//
+// manifest.json is JSON (Manifest). Version 2 carries a run id, made when
+// the run is created and written as the section "checkpoint.run" into every
+// artifact and state the run saves; a file whose run id differs (copied from
+// another run) is refused with a *ForeignError. It also carries a checksum:
+// the hex SHA-256 of its own JSON (compact, with the checksum empty). A
+// manifest whose checksum fails was damaged or edited outside nightjar and
+// is never used: Open falls back on manifest.prev.json if that one is valid
+// (and says so in Run.Fallback), and refuses otherwise. Version-1 manifests
+// (no run id, no checksum) are read as they are and saved again as version 2.
+//
+// # Writer lock
+//
+// One process at a time writes into a run directory. AcquireLock takes an
+// flock on .lock, held for the life of the process, and writes lock.json
+// with the holder's host, pid, start time and a heartbeat refreshed every
+// HeartbeatEvery. Since cluster file systems often honour flock within one
+// node only, the record decides across nodes: a holder on another host
+// counts as alive until its heartbeat is older than StaleAfter, one on the
+// same host until its pid is gone. Probe tells whether a run is held
+// without writing anything.
 package checkpoint
