@@ -383,3 +383,23 @@ func TestMisspeltOption(t *testing.T) {
 		t.Errorf("help embed: exit %d, required options not first:\n%s", code, help)
 	}
 }
+
+// TestFailedStartReplaced: a run that failed on bad input (a misspelt
+// --id) does not block the corrected command, and status says what to do.
+func TestFailedStartReplaced(t *testing.T) {
+	dir := t.TempDir()
+	in := writeDemoTable(t, dir, 300)
+	runDir := filepath.Join(dir, "run")
+	args := []string{"embed", "--input", in, "--run", runDir, "--iterations", "60", "--early-iterations", "20", "--score-sample", "0", "--quiet", "--label", "population"}
+	if code, _, errs := runCLI(append(args, "--id", "identifier")...); code != exitBadInput || !strings.Contains(errs, "identifier") {
+		t.Fatalf("misspelt --id: exit %d: %s", code, errs)
+	}
+	code, out, _ := runCLI("status", runDir)
+	if code != 0 || !strings.Contains(out, "embed") || strings.Contains(out, "resume") {
+		t.Errorf("status of a failed start:\n%s", out)
+	}
+	code, _, errs := runCLI(append(args, "--id", "id")...)
+	if code != 0 || !strings.Contains(errs, "replacing") {
+		t.Errorf("corrected embed: exit %d: %s", code, errs)
+	}
+}
