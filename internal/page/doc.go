@@ -17,7 +17,7 @@
 // UTF-8 byte lengths (uint8, uint16 or uint32) then their bytes. The block is
 // gzip-compressed, base64-encoded into a non-executed script element, and
 // unpacked in the browser by its own DecompressionStream. At 1,000,000 rows
-// with 12-character ids the file is about 17 MB (bench/RESULTS.md).
+// with 12-character ids the file is about 13 MB (bench/RESULTS.md).
 //
 // Every text that comes from the data (ids, labels, titles) sits in the JSON
 // header, whose encoder escapes <, > and & inside strings, or in the binary
@@ -43,8 +43,9 @@
 // moved out of view in the vertex shader); without WebGL, or with
 // ?renderer=canvas in the address, a canvas 2D fallback blends the points
 // into an image one by one. The page's status line says which. Hover finds the
-// nearest shown point through a uniform grid built in the page (about two
-// points per cell), not a scan. window.nightjar exposes the renderer, the time
-// of the first frame (performance.now()), the compute time of recent hovers
-// and the view, for tests and benchmarks.
+// nearest shown point through a uniform grid built in the page right after
+// the first frame (about two points per cell), not a scan. window.nightjar
+// exposes the renderer, the time of the first frame and of the stages before
+// it (performance.now()), the times of recent hovers and the view, for tests
+// and benchmarks.
 package page

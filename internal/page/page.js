@@ -3,7 +3,8 @@
 // labels, titles) goes into the page through textContent, never as markup.
 (function () {
   const $ = (id) => document.getElementById(id);
-  const NJ = window.nightjar = { ready: false, renderer: '', firstFrameMs: NaN, hoverMs: [], errors: [] };
+  const NJ = window.nightjar = { ready: false, renderer: '', firstFrameMs: NaN, hoverMs: [], errors: [], marks: {} };
+  const mark = (name) => { NJ.marks[name] = performance.now(); };
   window.addEventListener('error', (e) => NJ.errors.push(String(e.message)));
   const MARGIN = 24; // CSS pixels around the map at the first view
 
@@ -29,9 +30,9 @@
     const text = $('nj-data').textContent.trim();
     if (typeof DecompressionStream === 'undefined') throw new Error('this browser has no DecompressionStream (it needs Chrome 80, Firefox 113, Safari 16.4 or later)');
     let bytes;
-    try {
-      bytes = new Uint8Array(await (await fetch('data:application/octet-stream;base64,' + text)).arrayBuffer());
-    } catch (e) {
+    if (typeof Uint8Array.fromBase64 === 'function') {
+      bytes = Uint8Array.fromBase64(text);
+    } else {
       const s = atob(text);
       bytes = new Uint8Array(s.length);
       for (let i = 0; i < s.length; i++) bytes[i] = s.charCodeAt(i);
@@ -122,6 +123,9 @@
     if (S.first) {
       S.first = false;
       NJ.firstFrameMs = performance.now();
+      // The hover index is built after the first frame, which does not need it.
+      S.grid = njGrid(S.d.x, S.d.y, S.meta.bounds);
+      mark('indexed');
       NJ.ready = true;
       document.body.dataset.ready = '1';
     }
@@ -130,6 +134,7 @@
   function resize() {
     const st = $('nj-stage'), cv = $('nj-canvas');
     const W = st.clientWidth, H = st.clientHeight, dpr = window.devicePixelRatio || 1;
+    if (S.view && W === S.view.W && H === S.view.H && cv.width === Math.max(1, Math.round(W * dpr))) return;
     cv.width = Math.max(1, Math.round(W * dpr));
     cv.height = Math.max(1, Math.round(H * dpr));
     const f = fitView(W, H);
@@ -173,6 +178,7 @@
   }
   function hideTip() { $('nj-tip').hidden = true; }
   function hover(e) {
+    if (!S.grid) return;
     const t0 = performance.now();
     const st = $('nj-stage').getBoundingClientRect();
     const u = e.clientX - st.left - S.stageBorder, v = e.clientY - st.top - S.stageBorder;
@@ -312,6 +318,7 @@
   // boot unpacks the data, picks the renderer and builds the page; the
   // legend and the notes are in legend.js.
   async function boot() {
+    mark('script');
     const m = S.meta = JSON.parse($('nj-meta').textContent);
     document.title = m.title;
     $('nj-title').textContent = m.title;
@@ -319,6 +326,7 @@
     $('nj-caution').textContent = m.caution;
     $('nj-max').textContent = count(m.maxRows);
     S.d = await unpack(m);
+    mark('unpacked');
     S.n = m.n;
     S.hidden = new Uint8Array(m.groups.length + 1);
     const cv = $('nj-canvas');
@@ -335,7 +343,7 @@
       for (let i = 0; i < S.n; i++) if (S.d.placed[i]) order[k++] = i;
     }
     S.r.setPositions(S.d.x, S.d.y, order);
-    S.grid = njGrid(S.d.x, S.d.y, m.bounds);
+    mark('uploaded');
     S.auto = !(m.pointSize > 0 || m.opacity > 0);
     S.size = m.pointSize > 0 ? m.pointSize : 3;
     S.alpha = m.opacity > 0 ? m.opacity : 0.6;
@@ -347,6 +355,7 @@
     S.legend = njLegend(S, { el, count, num, colours });
     njNotes(S, { el, count }, S.r.name === 'WebGL' ? 'drawn with WebGL' : 'drawn with the canvas 2D fallback (' + why + ')');
     colours();
+    mark('coloured');
     $('nj-loading').remove();
     NJ.toScreen = (i) => toScreen(S.d.x[i], S.d.y[i]);
     NJ.find = find;
