@@ -64,7 +64,10 @@ type Report struct {
 	// figure reaches PeakMemoryBytes is the one that set the peak.
 	PhaseMemory  map[string]int64 `json:"peak_memory_bytes_after"`
 	SecondsTotal float64          `json:"seconds_total"`
-	Caution      string           `json:"caution"`
+	// Prediction names the prediction the run was given
+	// (Runtime.Prediction) and, once finished, how it compares with it.
+	Prediction *PredictionCheck `json:"prediction,omitempty"`
+	Caution    string           `json:"caution"`
 }
 
 // Reduced describes the streamed PCA of Settings.Reduce: the map and the
@@ -77,7 +80,8 @@ type Reduced struct {
 
 func newReport(s Settings, rt Runtime) Report {
 	return Report{Tool: "nightjar", Version: Version, Input: s.Input, Parameters: s, Threads: rt.Threads,
-		Cores: runtime.NumCPU(), GoVersion: runtime.Version(), Phases: map[string]float64{}, PhaseMemory: map[string]int64{}, Caution: Caution}
+		Cores: runtime.NumCPU(), GoVersion: runtime.Version(), Phases: map[string]float64{}, PhaseMemory: map[string]int64{}, Caution: Caution,
+		Prediction: predictionFor(rt.Prediction, s)}
 }
 
 // ReadReport reads a report.json.
@@ -95,6 +99,7 @@ func ReadReport(path string) (*Report, error) {
 
 // writeReport writes rep as indented JSON, atomically.
 func writeReport(path string, rep *Report) error {
+	rep.Prediction.measure(rep)
 	b, err := json.MarshalIndent(rep, "", "  ")
 	if err != nil {
 		return fmt.Errorf("encoding report: %w", err)

@@ -144,6 +144,10 @@ type Runtime struct {
 	// ScoreSample is the number of rows sampled for the quality scores of
 	// the report (0 = no scores).
 	ScoreSample int `flag:"score-sample" help:"rows sampled for the quality scores in the report (0 = none)" topic:"running"`
+	// Prediction is a prediction file written by nightjar bench --predict
+	// ("" = none): the report names the prediction made for the run's
+	// settings and compares the run with it.
+	Prediction string `flag:"prediction" help:"a prediction.json of nightjar bench --predict: the report records the prediction for this run's settings beside the measured time and memory" topic:"running"`
 	// Force lets Resume continue although the input changed since the run
 	// began.
 	Force bool `flag:"-"`
@@ -213,6 +217,11 @@ func (r *Runtime) Validate() error {
 	}
 	if r.ScoreSample < 0 {
 		return bad("score-sample", "must be 0 or more, got %d", r.ScoreSample)
+	}
+	if r.Prediction != "" {
+		if _, err := ReadPredictionFile(r.Prediction); err != nil {
+			return err
+		}
 	}
 	return nil
 }

@@ -70,20 +70,35 @@ func PrepareDataset(name string, rows int, s Settings, threads int, dir string, 
 	return d, nil
 }
 
-// WriteSweepReports writes bench.csv, bench.md and bench.png into out, and
-// reports whether it drew bench.png: it does not when no run has both a time
-// and a trustworthiness score (runs without scores, or all failed), and then
-// removes any bench.png left by an earlier sweep in out.
+// WriteSweepReports writes the reports of a sweep into out: bench.csv and
+// bench.md (one row per setting: medians over its repeats and their
+// spread, KL only where settings share P, the notes of meta and the KL
+// note), bench-runs.csv (every run) and bench.png (trustworthiness against
+// the median wall time). It reports whether it drew bench.png: it does not
+// when no setting has both a time and a trustworthiness score (runs
+// without scores, or all failed), and then removes any bench.png left by
+// an earlier sweep in out.
 func WriteSweepReports(out string, meta bench.Meta, keys []string, rs []bench.Result) (bool, error) {
-	if err := checkpoint.AtomicWrite(filepath.Join(out, "bench.csv"), func(w io.Writer) error { return bench.WriteCSV(w, meta, keys, rs) }); err != nil {
-		return false, fmt.Errorf("writing bench.csv: %w", err)
+	sums := bench.Summarise(rs)
+	if note := bench.KLNote(sums); note != "" {
+		meta.Notes = append(meta.Notes, note)
 	}
-	if err := checkpoint.AtomicWrite(filepath.Join(out, "bench.md"), func(w io.Writer) error { return bench.WriteMarkdown(w, meta, keys, rs) }); err != nil {
-		return false, fmt.Errorf("writing bench.md: %w", err)
+	files := []struct {
+		name  string
+		write func(io.Writer) error
+	}{
+		{"bench.csv", func(w io.Writer) error { return bench.WriteCSV(w, meta, keys, sums) }},
+		{"bench-runs.csv", func(w io.Writer) error { return bench.WriteRunsCSV(w, meta, keys, rs) }},
+		{"bench.md", func(w io.Writer) error { return bench.WriteMarkdown(w, meta, keys, sums) }},
+	}
+	for _, f := range files {
+		if err := checkpoint.AtomicWrite(filepath.Join(out, f.name), f.write); err != nil {
+			return false, fmt.Errorf("writing %s: %w", f.name, err)
+		}
 	}
 	var pts []figure.TradeoffPoint
 	drawable := false
-	for _, r := range rs {
+	for _, r := range sums {
 		pts = append(pts, figure.TradeoffPoint{Name: r.Name, Seconds: r.Seconds, Quality: r.Trust})
 		drawable = drawable || (!math.IsNaN(r.Seconds) && !math.IsNaN(r.Trust))
 	}
@@ -100,6 +115,33 @@ func WriteSweepReports(out string, meta bench.Meta, keys []string, rs []bench.Re
 		return false, fmt.Errorf("writing bench.png: %w", err)
 	}
 	return true, nil
+}
+
+// WriteRunsCSV writes every run of a sweep (bench.WriteRunsCSV) to path,
+// atomically.
+func WriteRunsCSV(path string, meta bench.Meta, keys []string, rs []bench.Result) error {
+	if err := checkpoint.AtomicWrite(path, func(w io.Writer) error { return bench.WriteRunsCSV(w, meta, keys, rs) }); err != nil {
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
+	return nil
+}
+
+// AffinityKey names what the affinities P of a run of s on rows rows
+// depend on: the table and its columns, the rows, the perplexity, the
+// metric and the neighbour search (resolved for rows), and for an
+// approximate search the seed and the recall goal. Runs with equal keys
+// share P (bit for bit, but for the hnsw search, whose start does not
+// repeat), so their KL divergences measure the fit to the same target.
+func AffinityKey(s Settings, rows int) string {
+	method := s.Neighbours
+	if m, err := s.neighbourMethod(rows); err == nil {
+		method = m.String()
+	}
+	key := fmt.Sprintf("%s|%q|%v|%d|%d|%g|%s|%s", s.Input, s.Features, s.SkipInvalid, s.Reduce, rows, s.Perplexity, s.Metric, method)
+	if method != "exact" {
+		key += fmt.Sprintf("|%d|%g", s.Seed, s.RecallGoal)
+	}
+	return key
 }
 
 // ScoreK is the neighbourhood size of the report's trustworthiness,

@@ -1,0 +1,93 @@
+package bench
+
+import (
+	"math"
+	"math/rand/v2"
+	"strings"
+	"testing"
+)
+
+// synthRuns returns runs at 10⁴, 3·10⁴ and 10⁵ rows whose phases follow
+// known laws (the reference), with 5 % seeded noise.
+func synthRuns(seed uint64, phases map[string]func(float64) float64, mem func(float64) float64) []RunSample {
+	rng := rand.New(rand.NewPCG(seed, 3))
+	var runs []RunSample
+	for _, n := range []float64{1e4, 3e4, 1e5} {
+		for range 2 {
+			r := RunSample{N: int(n), Phases: map[string]float64{}}
+			for name, v := range phases {
+				r.Phases[name] = v(n) * (1 + 0.05*rng.NormFloat64())
+				r.Seconds += r.Phases[name]
+			}
+			r.Seconds += 0.3 + 1e-6*n // the rest of the wall time
+			r.Memory = mem(n) * (1 + 0.02*rng.NormFloat64())
+			runs = append(runs, r)
+		}
+	}
+	return runs
+}
+
+func TestForecastRun(t *testing.T) {
+	phases := map[string]func(float64) float64{
+		"neighbours": func(n float64) float64 { return 2e-5 * n * math.Log(n) },
+		"affinities": func(n float64) float64 { return 3e-5 * n },
+		"optimiser":  func(n float64) float64 { return 80 + 4e-4*n },
+	}
+	mem := func(n float64) float64 { return 200e6 + 2500*n }
+	laws := []PhaseLaw{{Name: "neighbours", Law: NLogN}, {Name: "affinities", Law: Linear}, {Name: "optimiser", Law: Linear}}
+	const full = 1e6
+	truth := 0.3 + 1e-6*full
+	for _, v := range phases {
+		truth += v(full)
+	}
+	for seed := uint64(1); seed <= 5; seed++ {
+		fc := ForecastRun(laws, synthRuns(seed, phases, mem), full, DefaultLimits)
+		if fc.Seconds.Refused != "" || fc.Memory.Refused != "" {
+			t.Fatalf("seed %d: refused: %s %s", seed, fc.Seconds.Refused, fc.Memory.Refused)
+		}
+		if math.Abs(fc.Seconds.Value/truth-1) > 0.15 || truth < fc.Seconds.Low || truth > fc.Seconds.High {
+			t.Errorf("seed %d: wall %v, true %.4g", seed, fc.Seconds, truth)
+		}
+		if m := mem(full); math.Abs(fc.Memory.Value/m-1) > 0.1 || m < fc.Memory.Low || m > fc.Memory.High {
+			t.Errorf("seed %d: memory %v, true %.4g", seed, fc.Memory, m)
+		}
+		if len(fc.Phases) != 4 || fc.Phases[3].Name != OtherPhase {
+			t.Errorf("seed %d: phases %v", seed, fc.Phases)
+		}
+		var sum float64
+		for _, p := range fc.Phases {
+			sum += p.Value
+		}
+		if math.Abs(sum-fc.Seconds.Value) > 1e-9*sum {
+			t.Errorf("seed %d: phases add to %g, wall %g", seed, sum, fc.Seconds.Value)
+		}
+	}
+	// A phase that jumps refuses the wall time and is named.
+	runs := synthRuns(1, phases, mem)
+	for i := range runs {
+		if runs[i].N == 3e4 {
+			runs[i].Phases["affinities"] *= 20
+		}
+	}
+	fc := ForecastRun(laws, runs, full, DefaultLimits)
+	if !strings.HasPrefix(fc.Seconds.Refused, "affinities: ") || !math.IsNaN(fc.Seconds.Value) {
+		t.Errorf("jumping affinities: %v", fc.Seconds)
+	}
+}
+
+func TestRoughSeconds(t *testing.T) {
+	laws := []PhaseLaw{{Name: "a", Law: Linear}, {Name: "b", Law: Quadratic}}
+	one := []RunSample{{N: 1000, Seconds: 4, Phases: map[string]float64{"a": 1, "b": 2}}}
+	// a: 1 → 3; b: 2 → 18; other 1 → 3.
+	if got := RoughSeconds(laws, one, 3000); math.Abs(got-24) > 1e-9 {
+		t.Errorf("one size: %g, want 24", got)
+	}
+	two := append(one, RunSample{N: 2000, Seconds: 12, Phases: map[string]float64{"a": 2, "b": 8}})
+	// Fits through the two sizes: a = N/1000, b = 2·(N/1000)², other = N/1000.
+	if got := RoughSeconds(laws, two, 3000); math.Abs(got-24) > 1e-6 {
+		t.Errorf("two sizes: %g, want 24", got)
+	}
+	if !math.IsNaN(RoughSeconds(laws, nil, 10)) {
+		t.Error("no runs should give NaN")
+	}
+}
