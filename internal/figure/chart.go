@@ -11,6 +11,7 @@ import (
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/text"
 	"gonum.org/v1/plot/vg"
+	"gonum.org/v1/plot/vg/draw"
 )
 
 // TradeoffPoint is one run of a sweep on the accuracy-versus-speed chart.
@@ -52,6 +53,7 @@ func DrawTradeoff(w io.Writer, title, quality string, pts []TradeoffPoint) error
 		return fmt.Errorf("tradeoff chart: %w", err)
 	}
 	sc.GlyphStyle.Color = design[0].RGB
+	sc.GlyphStyle.Shape = draw.CircleGlyph{}
 	for i := range lb.TextStyle {
 		lb.TextStyle[i].Font = chartFont(false, 8)
 		lb.TextStyle[i].Color = Soft
