@@ -85,7 +85,7 @@ func runBench(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs.StringVar(&o.out, "out", "", "folder for the runs and the reports (default: a new ./nightjar-bench…)")
 	fs.Var(&vary, "vary", "`KEY=V1,V2,…`: a setting to sweep (repeatable; runs every combination); keys: "+strings.Join(varyKeys(), ", "))
 	fs.IntVar(&o.repeat, "repeat", 1, "runs of each setting; the reports give medians and the fastest and slowest run")
-	fs.IntVar(&o.warmup, "warmup", 1, "untimed runs of the first setting before the timed ones (0 = none), so that no setting pays for cold caches")
+	fs.IntVar(&o.warmup, "warmup", 1, "untimed short runs (10 iterations, no scores) of the first setting before the timed ones (0 = none), so that no setting pays for cold caches")
 	fs.StringVar(&o.order, "order", "interleaved", "order of the runs: interleaved (A B C A B C …) or shuffled (each round in a random order drawn from --order-seed)")
 	fs.Uint64Var(&o.orderSeed, "order-seed", 1, "seed of the shuffled order")
 	fs.BoolVar(&o.predict, "predict", false, "predict the wall time and peak memory of each setting on the whole table from runs on random subsamples (--ladder), with the quality on each")
@@ -250,8 +250,12 @@ func sweep(ctx context.Context, o *benchOptions, sizes []int, meta *bench.Meta) 
 	return results, nil
 }
 
-// warm runs the warm-up: untimed runs of c, whose results are dropped.
+// warm runs the warm-up: untimed short runs of c (10 iterations, no
+// scores), whose results are dropped.
 func (o *benchOptions) warm(c combo, rows int) {
+	c.s.Iterations = min(c.s.Iterations, 10)
+	c.s.EarlyIterations = min(c.s.EarlyIterations, c.s.Iterations)
+	c.r.ScoreSample = 0
 	for i := 1; i <= o.warmup; i++ {
 		o.u.Note(fmt.Sprintf("bench: warm-up run %d of %d (%s, %d rows, not timed)", i, o.warmup, c.name, rows))
 		res, _ := benchRun(o.self, filepath.Join(o.out, "runs", fmt.Sprintf("warm-up-%d", i)), c)

@@ -194,8 +194,13 @@ func (o *benchOptions) reportPrediction(stdout io.Writer, pf *nightjar.Predictio
 	}
 	fmt.Fprintf(stdout, "bench: prediction for %s rows of %s from subsamples of %s rows (made in %s):\n",
 		nightjar.Thousands(pf.Rows), o.data, ladderText(pf.Ladder), nightjar.Duration(pf.Seconds))
+	busy := maxOther(results)
 	for _, sp := range pf.Settings {
-		fmt.Fprintf(stdout, "  %s: %s\n", sp.Name, predictionLine(sp))
+		line := predictionLine(sp)
+		if sp.Seconds.Refused != "" && busy > 0.25 {
+			line += fmt.Sprintf(" (other processes used up to %.1f cores during the runs: rerun on a quieter machine, or with --repeat 3 so that the fit sees the noise)", busy)
+		}
+		fmt.Fprintf(stdout, "  %s: %s\n", sp.Name, line)
 	}
 	files := "predict.md, predict.csv, predict.png, prediction.json, bench-runs.csv"
 	if !chart {
