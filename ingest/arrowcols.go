@@ -55,26 +55,42 @@ func arrowCols(sc *arrow.Schema) []colInfo {
 	fs := sc.Fields()
 	cols := make([]colInfo, len(fs))
 	for i, f := range fs {
-		cols[i] = colInfo{name: f.Name, numeric: isNumericType(f.Type), typ: f.Type.String()}
+		vec, width := vectorWidth(f.Type)
+		cols[i] = colInfo{name: f.Name, numeric: isNumericType(f.Type) || vec, typ: f.Type.String(),
+			vector: vec, width: width, integer: isIntegerType(f.Type)}
 	}
 	return cols
 }
 
-// checkPassTypes checks the types of the id and label columns.
+// checkPassTypes checks the types of the id and label columns (folder keys,
+// beyond the schema's fields, are text).
 func checkPassTypes(file string, sc *arrow.Schema, sel selection) error {
-	if sel.id >= 0 {
+	if sel.id >= 0 && sel.id < sc.NumFields() {
 		f := sc.Field(sel.id)
 		if !isIntegerType(f.Type) && !isTextType(f.Type) {
 			return inputErr(file, f.Name, 0, "id column has type %s; want integers or text", f.Type)
 		}
 	}
-	if sel.label >= 0 {
+	if sel.label >= 0 && sel.label < sc.NumFields() {
 		f := sc.Field(sel.label)
 		if !isLabelType(f.Type) {
 			return inputErr(file, f.Name, 0, "label column has type %s; want text or integers", f.Type)
 		}
 	}
 	return nil
+}
+
+// intsIn reports whether field i of sc holds integers, plain or dictionary-
+// encoded (false beyond the schema: folder keys are text).
+func intsIn(sc *arrow.Schema, i int) bool {
+	if i < 0 || i >= sc.NumFields() {
+		return false
+	}
+	dt := sc.Field(i).Type
+	if d, ok := dt.(*arrow.DictionaryType); ok {
+		dt = d.ValueType
+	}
+	return isIntegerType(dt)
 }
 
 // fillArrow converts feature column j of a chunk (arr, n rows) into dst (n×D, row-major)
@@ -238,24 +254,86 @@ func (p *passCol) appendArrow(arr arrow.Array, keep []bool, rowBase int64) error
 	return nil
 }
 
+// appendConst appends the same value (a folder key) for the kept rows of a
+// chunk of n rows.
+func (p *passCol) appendConst(v string, null bool, n int, keep []bool, rowBase int64) error {
+	v = p.text(v)
+	for i := 0; i < n; i++ {
+		if keep != nil && !keep[i] {
+			continue
+		}
+		if null {
+			if err := p.appendNull(rowBase + int64(i) + 1); err != nil {
+				return err
+			}
+			continue
+		}
+		p.appendText(v)
+	}
+	return nil
+}
+
+// appendNull appends a null: an error for an id, a marked null for a label.
 func (p *passCol) appendNull(row int64) error {
 	if p.isID {
 		return inputErr(p.file, p.col.Name, row, "id is null")
 	}
-	p.col.Strings = append(p.col.Strings, "")
+	c := p.col
+	if c.Null == nil {
+		c.Null = make([]bool, c.Len(), max(16, c.Len()*5/4))
+	}
+	if c.Ints != nil {
+		c.Ints = append(c.Ints, 0)
+	} else {
+		c.Strings = append(c.Strings, "")
+	}
+	c.Null = append(c.Null, true)
 	return nil
+}
+
+// appendInt appends an integer (as text to a text column).
+func (p *passCol) appendInt(v int64) {
+	c := p.col
+	if c.Ints != nil {
+		c.Ints = append(c.Ints, v)
+	} else {
+		c.Strings = append(c.Strings, p.text(strconv.FormatInt(v, 10)))
+	}
+	if c.Null != nil {
+		c.Null = append(c.Null, false)
+	}
+}
+
+// appendText appends text; an integer column becomes a text column first.
+func (p *passCol) appendText(s string) {
+	c := p.col
+	if c.Ints != nil {
+		strs := make([]string, len(c.Ints), max(cap(c.Ints), 16))
+		for i, v := range c.Ints {
+			if c.Null == nil || !c.Null[i] {
+				strs[i] = strconv.FormatInt(v, 10)
+			}
+		}
+		c.Ints, c.Strings = nil, strs
+	}
+	c.Strings = append(c.Strings, p.text(s))
+	if c.Null != nil {
+		c.Null = append(c.Null, false)
+	}
 }
 
 func (p *passCol) appendValue(arr arrow.Array, i int, rowBase int64) error {
 	var iv int64
-	isInt := true
 	switch a := arr.(type) {
 	case *array.String:
-		return p.appendText(a.Value(i))
+		p.appendText(a.Value(i))
+		return nil
 	case *array.LargeString:
-		return p.appendText(a.Value(i))
+		p.appendText(a.Value(i))
+		return nil
 	case *array.StringView:
-		return p.appendText(a.Value(i))
+		p.appendText(a.Value(i))
+		return nil
 	case *array.Int8:
 		iv = int64(a.Value(i))
 	case *array.Int16:
@@ -273,58 +351,67 @@ func (p *passCol) appendValue(arr arrow.Array, i int, rowBase int64) error {
 	case *array.Uint64:
 		u := a.Value(i)
 		if u > math.MaxInt64 {
-			return inputErr(p.file, p.col.Name, rowBase+int64(i)+1, "id %d does not fit in int64", u)
+			return inputErr(p.file, p.col.Name, rowBase+int64(i)+1, "value %d does not fit in int64", u)
 		}
 		iv = int64(u)
 	default:
-		isInt = false
-	}
-	if !isInt {
 		panic("ingest: unexpected pass-through type " + arr.DataType().String())
 	}
-	if p.col.Ints != nil {
-		p.col.Ints = append(p.col.Ints, iv)
-		return nil
-	}
-	return p.appendText(strconv.FormatInt(iv, 10))
+	p.appendInt(iv)
+	return nil
 }
 
-func (p *passCol) appendText(s string) error {
-	p.col.Strings = append(p.col.Strings, p.text(s))
-	return nil
+// textAt returns value i of a pass-through array as text ("" when null).
+func textAt(arr arrow.Array, i int) string {
+	if arr.IsNull(i) {
+		return ""
+	}
+	if d, ok := arr.(*array.Dictionary); ok {
+		return textAt(d.Dictionary(), d.GetValueIndex(i))
+	}
+	return arr.ValueStr(i)
 }
 
 // appendDict appends from a dictionary-encoded array, converting each dictionary
 // entry once.
 func (p *passCol) appendDict(a *array.Dictionary, keep []bool, rowBase int64) error {
 	dict := a.Dictionary()
-	vals := make([]string, dict.Len())
-	valid := make([]bool, dict.Len())
-	tmp := &passCol{col: &Column{Name: p.col.Name, Strings: []string{}}, file: p.file, intern: p.intern}
+	tmp := &passCol{col: &Column{Name: p.col.Name}, file: p.file, intern: p.intern}
+	if p.col.Ints != nil {
+		tmp.col.Ints = []int64{}
+	} else {
+		tmp.col.Strings = []string{}
+	}
 	if tmp.intern == nil {
 		tmp.intern = make(map[string]string)
 	}
+	valid := make([]bool, dict.Len())
 	for k := 0; k < dict.Len(); k++ {
 		if dict.IsNull(k) {
+			tmp.appendInt(0) // a placeholder; valid[k] stays false
 			continue
 		}
 		if err := tmp.appendValue(dict, k, 0); err != nil {
 			return err
 		}
-		vals[k] = tmp.col.Strings[len(tmp.col.Strings)-1]
 		valid[k] = true
 	}
 	for i := 0; i < a.Len(); i++ {
 		if keep != nil && !keep[i] {
 			continue
 		}
-		if a.IsNull(i) || !valid[a.GetValueIndex(i)] {
+		k := a.GetValueIndex(i)
+		if a.IsNull(i) || k < 0 || k >= len(valid) || !valid[k] {
 			if err := p.appendNull(rowBase + int64(i) + 1); err != nil {
 				return err
 			}
 			continue
 		}
-		p.col.Strings = append(p.col.Strings, vals[a.GetValueIndex(i)])
+		if tmp.col.Ints != nil {
+			p.appendInt(tmp.col.Ints[k])
+		} else {
+			p.appendText(tmp.col.Strings[k])
+		}
 	}
 	return nil
 }

@@ -13,45 +13,112 @@ import (
 	"github.com/apache/arrow/go/v17/arrow/memory"
 	"github.com/apache/arrow/go/v17/parquet"
 	"github.com/apache/arrow/go/v17/parquet/file"
+	"github.com/apache/arrow/go/v17/parquet/metadata"
 	"github.com/apache/arrow/go/v17/parquet/pqarrow"
 )
 
 // recordPlan maps the roles of the selected columns to columns of the records read.
 type recordPlan struct {
-	feat        []int // record column per feature
-	id, label   int   // record column, -1 when not requested
+	as          *assembly
+	cols        []colInfo // the part's columns, folder keys included
+	sel         selection // in terms of cols
+	rec         selection // in terms of the record's columns (features; id and label < 0 for folder keys)
+	idKey       int       // folder key of the id, -1 when it is a column or absent
+	labelKey    int
 	idP, labelP *passCol
+	feat        []featSrc // set from the first record
 	batchRows   int
-	total       int64 // -1 when unknown
-	progress    func(done, total int64)
+	total       int64 // rows the part announces, -1 when unknown
 }
 
-// planFor builds the plan for records holding every schema field.
-func planFor(file string, sc *arrow.Schema, sel selection, opt Options, total int64, noPass bool) *recordPlan {
-	p := &recordPlan{feat: sel.features, id: sel.id, label: sel.label, batchRows: opt.BatchRows, total: total, progress: opt.Progress}
-	if noPass {
-		return p
-	}
+// featSrc is where one selected feature column goes in the matrix.
+type featSrc struct {
+	col   int    // record column
+	at    int    // first matrix column
+	width int    // 0 for a scalar
+	name  string // column name, for messages
+}
+
+// newPlan makes the plan of a part whose schema is sc, once its columns are
+// selected (sel over cols) and the record columns rec are known.
+func (as *assembly) newPlan(sc *arrow.Schema, cols []colInfo, sel, rec selection, total int64) *recordPlan {
+	p := &recordPlan{as: as, cols: cols, sel: sel, rec: rec, idKey: -1, labelKey: -1, total: total}
+	as.curTotal = total
+	p.batchRows = as.ctl.batch(as.opt, knownWidth(cols, sel, as.cols))
+	var idName, labelName string
 	if sel.id >= 0 {
-		p.idP = newPassCol(file, sc.Field(sel.id).Name, true, isIntegerType(sc.Field(sel.id).Type))
+		idName = cols[sel.id].name
+		p.idKey = cols[sel.id].key - 1
 	}
 	if sel.label >= 0 {
-		p.labelP = newPassCol(file, sc.Field(sel.label).Name, false, false)
+		labelName = cols[sel.label].name
+		p.labelKey = cols[sel.label].key - 1
 	}
+	p.idP, p.labelP = as.passCols(idName, labelName, intsIn(sc, sel.id), intsIn(sc, sel.label))
 	return p
 }
 
-// selectArrow runs column selection on an Arrow schema and checks pass-through types.
-func selectArrow(file string, sc *arrow.Schema, opt Options) (selection, error) {
-	sel, err := selectColumns(file, arrowCols(sc), opt)
-	if err != nil {
-		return sel, err
+// knownWidth estimates the matrix width of a selection for the chunk size: the
+// first part's widths when known, else fixed widths, else 1 per list column.
+func knownWidth(cols []colInfo, sel selection, first []FeatureColumn) int {
+	if first != nil {
+		d := 0
+		for _, c := range first {
+			d += c.Width
+		}
+		return d
 	}
-	return sel, checkPassTypes(file, sc, sel)
+	d := 0
+	for _, c := range sel.features {
+		d += max(1, cols[c].width)
+	}
+	return d
+}
+
+// start lays the features out in the matrix from the first record: the width
+// of a list column is the length of its first non-null list.
+func (p *recordPlan) start(rec arrow.Record) error {
+	as := p.as
+	widths := make([]int, len(p.sel.features))
+	for j, c := range p.sel.features {
+		ci := p.cols[c]
+		switch {
+		case !ci.vector:
+			widths[j] = 1
+		case as.cols != nil:
+			widths[j] = as.cols[j].Width
+		case ci.width > 0:
+			widths[j] = ci.width
+		default:
+			if widths[j] = firstWidth(rec.Column(p.rec.features[j])); widths[j] <= 0 {
+				return inputErr(as.path, ci.name, 0, "the first %d rows of the vector column are null or empty: its width is unknown", rec.NumRows())
+			}
+		}
+	}
+	as.ensureBuilder(p.cols, p.sel, widths, max(p.total, 0))
+	at := 0
+	for j, c := range p.sel.features {
+		ci := p.cols[c]
+		f := featSrc{col: p.rec.features[j], at: at, name: ci.name}
+		if ci.vector {
+			f.width = widths[j]
+		}
+		p.feat = append(p.feat, f)
+		at += widths[j]
+	}
+	return nil
 }
 
 // consume converts one record into the builder, BatchRows rows at a time.
-func (p *recordPlan) consume(b *builder, rec arrow.Record) error {
+func (p *recordPlan) consume(rec arrow.Record) error {
+	if rec.NumRows() == 0 {
+		return nil
+	}
+	if p.feat == nil {
+		if err := p.start(rec); err != nil {
+			return err
+		}
+	}
 	n := rec.NumRows()
 	for off := int64(0); off < n; off += int64(p.batchRows) {
 		end := min(n, off+int64(p.batchRows))
@@ -59,60 +126,95 @@ func (p *recordPlan) consume(b *builder, rec arrow.Record) error {
 		if off != 0 || end != n {
 			part = rec.NewSlice(off, end)
 		}
-		err := p.consumePart(b, part)
+		err := p.consumePart(part)
 		if part != rec {
 			part.Release()
 		}
 		if err != nil {
 			return err
 		}
-		if p.progress != nil {
-			p.progress(b.seen, p.total)
-		}
+		p.as.progress()
 	}
 	return nil
 }
 
-func (p *recordPlan) consumePart(b *builder, rec arrow.Record) error {
+func (p *recordPlan) consumePart(rec arrow.Record) error {
+	b := p.as.b
 	n := int(rec.NumRows())
 	dst := b.begin(n)
-	for j, c := range p.feat {
-		b.fillArrow(dst, j, rec.Column(c))
+	for _, f := range p.feat {
+		if f.width == 0 {
+			b.fillArrow(dst, f.at, rec.Column(f.col))
+		} else if err := b.fillList(dst, f.at, f.width, f.name, rec.Column(f.col)); err != nil {
+			return err
+		}
 	}
 	keep, err := b.finish()
 	if err != nil {
 		return err
 	}
-	if p.idP != nil {
-		if err := p.idP.appendArrow(rec.Column(p.id), keep, b.seen); err != nil {
-			return err
-		}
+	if err := p.appendPass(p.idP, p.rec.id, p.idKey, rec, n, keep, b.seen); err != nil {
+		return err
 	}
-	if p.labelP != nil {
-		if err := p.labelP.appendArrow(rec.Column(p.label), keep, b.seen); err != nil {
-			return err
-		}
+	if err := p.appendPass(p.labelP, p.rec.label, p.labelKey, rec, n, keep, b.seen); err != nil {
+		return err
+	}
+	if len(b.fresh) > 0 && p.idP != nil {
+		b.noteIDs(func(i int) string {
+			if p.idKey >= 0 {
+				v, _ := p.as.keyValue(p.idKey)
+				return v
+			}
+			return textAt(rec.Column(p.rec.id), i)
+		})
 	}
 	b.advance(n)
 	return nil
 }
 
-func (p *recordPlan) finishTable(b *builder) (*Table, error) {
-	t, err := b.table()
-	if err != nil {
-		return nil, err
+// appendPass appends the kept rows of a pass-through column: record column
+// col, or folder key key.
+func (p *recordPlan) appendPass(pc *passCol, col, key int, rec arrow.Record, n int, keep []bool, rowBase int64) error {
+	switch {
+	case pc == nil:
+		return nil
+	case key >= 0:
+		v, null := p.as.keyValue(key)
+		return pc.appendConst(v, null, n, keep, rowBase)
 	}
-	if p.idP != nil {
-		t.ID = p.idP.col
-	}
-	if p.labelP != nil {
-		t.Label = p.labelP.col
-	}
-	return t, nil
+	return pc.appendArrow(rec.Column(col), keep, rowBase)
 }
 
-func readParquet(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) {
-	mem := allocFor(fileSize(f))
+// selectArrow runs column selection on the Arrow schema of the current part
+// (with the dataset's folder keys) and checks pass-through types and widths.
+func (as *assembly) selectArrow(sc *arrow.Schema) ([]colInfo, selection, error) {
+	cols := as.withKeys(arrowCols(sc))
+	sel, err := as.selectPart(cols)
+	if err != nil {
+		return nil, sel, err
+	}
+	if err := checkPassTypes(as.path, sc, sel); err != nil {
+		return nil, sel, err
+	}
+	return cols, sel, as.checkWidths(cols, sel)
+}
+
+// recordSel returns the selection in terms of the columns of records that
+// hold every schema field in order (folder keys become -1).
+func recordSel(sc *arrow.Schema, sel selection) selection {
+	out := sel
+	if sel.id >= sc.NumFields() {
+		out.id = -1
+	}
+	if sel.label >= sc.NumFields() {
+		out.label = -1
+	}
+	return out
+}
+
+func (as *assembly) readParquet(path string, f *os.File) error {
+	size := fileSize(path)
+	mem := allocFor(size)
 	props := parquet.NewReaderProperties(mem)
 	// Stream each column chunk through a small buffer instead of loading whole column
 	// chunks: a row group of a wide table would otherwise sit in memory at once.
@@ -120,9 +222,14 @@ func readParquet(path string, f *os.File, opt Options, ctl readCtl) (*Table, err
 	props.BufferSize = 64 << 10
 	pf, err := file.NewParquetReader(f, file.WithReadProps(props))
 	if err != nil {
-		return nil, wrapInputErr(path, "", 0, err, "cannot read Parquet metadata")
+		return wrapInputErr(path, "", 0, err, "cannot read Parquet metadata")
 	}
 	defer pf.Close()
+	// One buffer per column read: at most about 32 MiB in all for wide tables.
+	props.BufferSize = min(64<<10, max(8<<10, (32<<20)/max(1, int64(pf.MetaData().Schema.NumColumns()))))
+	if err := checkParquetMeta(path, pf.MetaData(), size); err != nil {
+		return err
+	}
 	// Ignore an Arrow schema stored by an Arrow writer: with it pqarrow reads a
 	// dictionary column as dictionary arrays, which its record reader cannot return
 	// once a batch spans two dictionaries (ErrNotImplemented in v17). The Parquet
@@ -134,75 +241,81 @@ func readParquet(path string, f *os.File, opt Options, ctl readCtl) (*Table, err
 	}
 	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{Parallel: false}, mem)
 	if err != nil {
-		return nil, wrapInputErr(path, "", 0, err, "cannot read Parquet schema")
+		return wrapInputErr(path, "", 0, err, "cannot read Parquet schema")
 	}
 	sc, err := fr.Schema()
 	if err != nil {
-		return nil, wrapInputErr(path, "", 0, err, "cannot read Parquet schema")
+		return wrapInputErr(path, "", 0, err, "cannot read Parquet schema")
 	}
-	sel, err := selectArrow(path, sc, opt)
+	cols, sel, err := as.selectArrow(sc)
 	if err != nil {
-		return nil, err
+		return err
 	}
-	opt.BatchRows = ctl.batch(opt, len(sel.features))
 	total := pf.NumRows()
-	// The column readers reserve a whole batch: no more than the file holds.
-	fr.Props.BatchSize = max(1, min(int64(opt.BatchRows), total))
 	if total == 0 {
-		return nil, inputErr(path, "", 0, "empty table (0 rows)")
+		if len(as.ds.Parts) == 1 {
+			return inputErr(path, "", 0, "empty table (0 rows)")
+		}
+		return nil
 	}
 	leaves, rsel, err := parquetLeaves(path, fr, sc, sel)
 	if err != nil {
-		return nil, err
+		return err
 	}
+	plan := as.newPlan(sc, cols, sel, rsel, total)
+	if as.cols == nil {
+		plan.batchRows = as.ctl.batch(as.opt, parquetWidth(pf.MetaData(), fr, sc, sel))
+	}
+	// The column readers reserve a whole batch: no more than the file holds.
+	fr.Props.BatchSize = max(1, min(int64(plan.batchRows), total))
 	rr, err := fr.GetRecordReader(context.Background(), leaves, nil)
 	if err != nil {
-		return nil, wrapInputErr(path, "", 0, err, "cannot read Parquet columns")
+		return wrapInputErr(path, "", 0, err, "cannot read Parquet columns")
 	}
 	defer rr.Release()
-	plan := planFor(path, sc, sel, opt, total, ctl.noPass)
-	plan.feat, plan.id, plan.label = rsel.features, rsel.id, rsel.label
-	b := newBuilder(path, sel.names(arrowCols(sc)), opt, presizeRows(total, len(sel.features), fileSize(f)), ctl)
+	var seen int64
 	for rr.Next() {
-		if err := plan.consume(b, rr.Record()); err != nil {
-			return nil, err
+		rec := rr.Record()
+		seen += rec.NumRows()
+		if err := plan.consume(rec); err != nil {
+			return err
 		}
 	}
 	if err := rr.Err(); err != nil && !errors.Is(err, io.EOF) {
-		return nil, wrapInputErr(path, "", b.seen+1, err, "corrupt Parquet data")
+		return wrapInputErr(path, "", seen+1, err, "corrupt Parquet data")
 	}
-	if b.seen != total {
-		return nil, inputErr(path, "", 0, "Parquet metadata announces %d rows but %d were read", total, b.seen)
+	if seen != total {
+		return inputErr(path, "", 0, "Parquet metadata announces %d rows but %d were read", total, seen)
 	}
-	return plan.finishTable(b)
+	return nil
 }
 
 // parquetLeaves returns the leaf columns to read for the selected schema fields,
 // each needed field once, and the selection in terms of the columns of the
 // records read (the record reader returns the fields in the order of the leaf
-// columns asked for). A nested column is an error.
+// columns asked for; folder keys are -1). A vector column is read through its
+// one leaf; other nested columns are an error.
 func parquetLeaves(path string, fr *pqarrow.FileReader, sc *arrow.Schema, sel selection) ([]int, selection, error) {
 	var leaves, fields []int
 	at := make(map[int]int) // schema field -> record column
 	need := func(field int) int {
+		if field < 0 || field >= sc.NumFields() {
+			return -1
+		}
 		if c, ok := at[field]; ok {
 			return c
 		}
 		at[field] = len(leaves)
-		leaves = append(leaves, fr.Manifest.Fields[field].ColIndex)
+		leaves = append(leaves, leafOf(fr.Manifest.Fields[field]))
 		fields = append(fields, field)
 		return at[field]
 	}
-	rsel := selection{id: -1, label: -1}
+	rsel := selection{id: -1, label: -1, patterns: sel.patterns}
 	for _, fi := range sel.features {
 		rsel.features = append(rsel.features, need(fi))
 	}
-	if sel.id >= 0 {
-		rsel.id = need(sel.id)
-	}
-	if sel.label >= 0 {
-		rsel.label = need(sel.label)
-	}
+	rsel.id = need(sel.id)
+	rsel.label = need(sel.label)
 	for k, leaf := range leaves {
 		if leaf < 0 {
 			return nil, rsel, inputErr(path, sc.Field(fields[k]).Name, 0, "nested column cannot be read")
@@ -211,88 +324,155 @@ func parquetLeaves(path string, fr *pqarrow.FileReader, sc *arrow.Schema, sel se
 	return leaves, rsel, nil
 }
 
-func readArrowFile(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) {
+// leafOf returns the leaf column of a flat field or of a list of a flat type,
+// or -1. (A field is a leaf when it has no children: pqarrow v17 leaves the
+// ColIndex of a list field at 0, not −1.)
+func leafOf(f pqarrow.SchemaField) int {
+	if len(f.Children) == 0 {
+		return f.ColIndex
+	}
+	if len(f.Children) == 1 && len(f.Children[0].Children) == 0 {
+		if ok, _ := vectorWidth(f.Field.Type); ok {
+			return f.Children[0].ColIndex
+		}
+	}
+	return -1
+}
+
+// parquetWidth estimates the matrix width of the selected columns from the
+// first row group's metadata: a list column's values per row.
+func parquetWidth(md *metadata.FileMetaData, fr *pqarrow.FileReader, sc *arrow.Schema, sel selection) int {
+	d := 0
+	for _, fi := range sel.features {
+		w := 1
+		if ok, fixed := vectorWidth(sc.Field(fi).Type); ok {
+			w = fixed
+			if leaf := leafOf(fr.Manifest.Fields[fi]); w == 0 && leaf >= 0 && len(md.RowGroups) > 0 {
+				rg := md.RowGroup(0)
+				if cc, err := rg.ColumnChunk(leaf); err == nil && rg.NumRows() > 0 {
+					w = int(min(cc.NumValues()/rg.NumRows(), 1<<20))
+				}
+			}
+		}
+		d += max(1, w)
+	}
+	return d
+}
+
+func (as *assembly) readArrowFile(path string, f *os.File) error {
 	// Checked before the Arrow library sees the file; see ipcFileRows.
 	total, err := ipcFileRows(f)
 	if err != nil {
-		return nil, wrapInputErr(path, "", 0, err, "corrupt Arrow IPC file")
+		return wrapInputErr(path, "", 0, err, "corrupt Arrow IPC file")
 	}
-	if total == 0 {
-		return nil, inputErr(path, "", 0, "empty table (0 rows)")
+	if total == 0 && len(as.ds.Parts) == 1 {
+		return inputErr(path, "", 0, "empty table (0 rows)")
 	}
-	r, err := ipc.NewFileReader(f, ipc.WithAllocator(allocFor(fileSize(f))))
+	r, err := ipc.NewFileReader(f, ipc.WithAllocator(allocFor(fileSize(path))))
 	if err != nil {
-		return nil, wrapInputErr(path, "", 0, err, "cannot read Arrow IPC file")
+		return wrapInputErr(path, "", 0, err, "cannot read Arrow IPC file")
 	}
 	defer r.Close()
 	sc := r.Schema()
-	sel, err := selectArrow(path, sc, opt)
+	cols, sel, err := as.selectArrow(sc)
 	if err != nil {
-		return nil, err
+		return err
 	}
-	opt.BatchRows = ctl.batch(opt, len(sel.features))
-	plan := planFor(path, sc, sel, opt, total, ctl.noPass)
-	b := newBuilder(path, sel.names(arrowCols(sc)), opt, presizeRows(total, len(sel.features), fileSize(f)), ctl)
+	plan := as.newPlan(sc, cols, sel, recordSel(sc, sel), total)
+	var seen int64
 	for i := 0; i < r.NumRecords(); i++ {
 		rec, err := r.RecordAt(i)
 		if err != nil {
-			return nil, wrapInputErr(path, "", b.seen+1, err, "corrupt Arrow IPC record batch %d", i)
+			return wrapInputErr(path, "", seen+1, err, "corrupt Arrow IPC record batch %d", i)
 		}
-		err = plan.consume(b, rec)
+		seen += rec.NumRows()
+		err = plan.consume(rec)
 		rec.Release()
 		if err != nil {
-			return nil, err
+			return err
 		}
 	}
-	if b.seen != total {
-		return nil, inputErr(path, "", 0, "corrupt Arrow IPC file: the footer announces %d rows but %d were read", total, b.seen)
+	if seen != total {
+		return inputErr(path, "", 0, "corrupt Arrow IPC file: the footer announces %d rows but %d were read", total, seen)
 	}
-	return plan.finishTable(b)
+	return nil
 }
 
-func readArrowStream(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) {
+func (as *assembly) readArrowStream(path string, f *os.File) error {
 	// Checked before the Arrow library sees the stream; see ipcStreamCheck.
 	if err := ipcStreamCheck(f); err != nil {
 		var se *streamError
 		switch {
 		case !errors.As(err, &se):
-			return nil, wrapInputErr(path, "", 0, err, "cannot read Arrow IPC stream")
+			return wrapInputErr(path, "", 0, err, "cannot read Arrow IPC stream")
 		case se.schema:
-			return nil, wrapInputErr(path, "", 0, se.err, "corrupt Arrow IPC stream: bad schema message")
+			return wrapInputErr(path, "", 0, se.err, "corrupt Arrow IPC stream: bad schema message")
 		default:
-			return nil, wrapInputErr(path, "", se.rows+1, se.err, "truncated or corrupt Arrow IPC stream")
+			return wrapInputErr(path, "", se.rows+1, se.err, "truncated or corrupt Arrow IPC stream")
 		}
 	}
-	r, err := ipc.NewReader(bufio.NewReaderSize(f, 1<<20), ipc.WithAllocator(allocFor(fileSize(f))))
+	r, err := ipc.NewReader(bufio.NewReaderSize(f, 1<<20), ipc.WithAllocator(allocFor(fileSize(path))))
 	if err != nil {
-		return nil, wrapInputErr(path, "", 0, err, "cannot read Arrow IPC stream")
+		return wrapInputErr(path, "", 0, err, "cannot read Arrow IPC stream")
 	}
 	defer r.Release()
 	sc := r.Schema()
-	sel, err := selectArrow(path, sc, opt)
+	cols, sel, err := as.selectArrow(sc)
 	if err != nil {
-		return nil, err
+		return err
 	}
-	opt.BatchRows = ctl.batch(opt, len(sel.features))
-	plan := planFor(path, sc, sel, opt, -1, ctl.noPass)
-	b := newBuilder(path, sel.names(arrowCols(sc)), opt, 0, ctl)
+	plan := as.newPlan(sc, cols, sel, recordSel(sc, sel), -1)
+	var seen int64
 	for r.Next() {
-		if err := plan.consume(b, r.Record()); err != nil {
-			return nil, err
+		seen += r.Record().NumRows()
+		if err := plan.consume(r.Record()); err != nil {
+			return err
 		}
 	}
 	if err := r.Err(); err != nil {
-		return nil, wrapInputErr(path, "", b.seen+1, err, "truncated or corrupt Arrow IPC stream")
+		return wrapInputErr(path, "", seen+1, err, "truncated or corrupt Arrow IPC stream")
 	}
-	return plan.finishTable(b)
+	if seen == 0 && len(as.ds.Parts) == 1 {
+		return inputErr(path, "", 0, "empty table (0 rows)")
+	}
+	return nil
 }
 
-func fileSize(f *os.File) int64 {
-	st, err := f.Stat()
+// countRows returns the rows a Parquet or Arrow IPC file announces in its
+// metadata, or -1 for other files and when it cannot tell.
+func countRows(path string) (n int64) {
+	f, err := os.Open(path)
 	if err != nil {
-		return 0
+		return -1
 	}
-	return st.Size()
+	defer f.Close()
+	size := fileSize(path)
+	format, _, err := detect(path, f, size)
+	if err != nil {
+		return -1
+	}
+	defer func() {
+		if recover() != nil {
+			n = -1
+		}
+	}()
+	switch format {
+	case "parquet":
+		pf, err := file.NewParquetReader(f, file.WithReadProps(parquet.NewReaderProperties(allocFor(size))))
+		if err != nil {
+			return -1
+		}
+		defer pf.Close()
+		if checkParquetMeta(path, pf.MetaData(), size) != nil {
+			return -1
+		}
+		return pf.NumRows()
+	case "arrow":
+		if n, err := ipcFileRows(f); err == nil {
+			return n
+		}
+	}
+	return -1
 }
 
 // cappedAlloc is the Arrow allocator for decoding one file: it refuses (by a panic

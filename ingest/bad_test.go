@@ -165,7 +165,7 @@ func TestBadInput(t *testing.T) {
 		{"ragged csv", put("r.csv", []byte("a,b\n1,2\n3\n")), Options{}, "", 2, "malformed CSV (line 3): wrong number of fields"},
 		{"bad quote csv", put("q.csv", []byte("a,b\n1,\"2\n")), Options{}, "", 1, "malformed CSV"},
 		{"all rows dropped", put("d.csv", []byte("a\nNaN\ninf\n")), Options{SkipInvalid: true}, "", 0, "empty table: all 2 rows were dropped"},
-		{"directory", dir, Options{}, "", 0, "is a directory"},
+		{"directory without tables", docsDir(t), Options{}, "", 0, "directory holds no Parquet, Arrow or CSV files"},
 		{"no such file", filepath.Join(dir, "absent.parquet"), Options{}, "", 0, "cannot open: no such file or directory"},
 	}
 	for _, c := range cases {
@@ -174,6 +174,15 @@ func TestBadInput(t *testing.T) {
 			wantInputError(t, err, c.path, c.column, c.row, c.reason)
 		})
 	}
+}
+
+// docsDir returns a directory holding only a text file that is not a table by its name.
+func docsDir(t *testing.T) string {
+	dir := t.TempDir()
+	if err := os.WriteFile(filepath.Join(dir, "README.md"), []byte("# notes\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return dir
 }
 
 // TestInputErrorFormat pins the message layout of the example on InputError.

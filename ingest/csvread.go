@@ -32,9 +32,14 @@ type csvInfo struct {
 func (in csvInfo) numeric() bool { return in.nonEmpty > 0 && 2*in.numbers >= in.nonEmpty }
 
 // parseNumber parses a CSV number, rounded once, correctly, to float32 (parsing to
-// float64 first could round twice). Values beyond float32's range give ±Inf.
+// float64 first could round twice). Values beyond float32's range give ±Inf. Only
+// decimal syntax is a number (see decimalSyntax).
 func parseNumber(s string) (float64, bool) {
-	v, err := strconv.ParseFloat(strings.TrimSpace(s), 32)
+	s = strings.TrimSpace(s)
+	if !decimalSyntax(s) {
+		return 0, false
+	}
+	v, err := strconv.ParseFloat(s, 32)
 	if err != nil {
 		var ne *strconv.NumError
 		if errors.As(err, &ne) && ne.Err == strconv.ErrRange {
@@ -43,6 +48,51 @@ func parseNumber(s string) (float64, bool) {
 		return 0, false
 	}
 	return v, true
+}
+
+// decimalSyntax reports whether s is a decimal number as spreadsheets and data
+// tools write them — [sign] digits [. digits] [e|E [sign] digits], with at least
+// one digit before or after the point — or, in any case, [sign] NaN, Inf or
+// Infinity. It rules out what strconv.ParseFloat accepts beyond that: hexadecimal
+// floats ("0x1p3") and underscores between digits ("1_000").
+func decimalSyntax(s string) bool {
+	i := 0
+	if i < len(s) && (s[i] == '+' || s[i] == '-') {
+		i++
+	}
+	if t := s[i:]; len(t) > 0 && (t[0]|0x20 == 'n' || t[0]|0x20 == 'i') {
+		return strings.EqualFold(t, "nan") || strings.EqualFold(t, "inf") || strings.EqualFold(t, "infinity")
+	}
+	digits := 0
+	for i < len(s) && s[i] >= '0' && s[i] <= '9' {
+		i++
+		digits++
+	}
+	if i < len(s) && s[i] == '.' {
+		i++
+		for i < len(s) && s[i] >= '0' && s[i] <= '9' {
+			i++
+			digits++
+		}
+	}
+	if digits == 0 {
+		return false
+	}
+	if i < len(s) && (s[i] == 'e' || s[i] == 'E') {
+		i++
+		if i < len(s) && (s[i] == '+' || s[i] == '-') {
+			i++
+		}
+		exp := 0
+		for i < len(s) && s[i] >= '0' && s[i] <= '9' {
+			i++
+			exp++
+		}
+		if exp == 0 {
+			return false
+		}
+	}
+	return i == len(s)
 }
 
 func parseCanonicalInt(s string) (int64, bool) {
@@ -54,33 +104,65 @@ func parseCanonicalInt(s string) (int64, bool) {
 	return v, true
 }
 
-func readCSV(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) {
-	br := bufio.NewReaderSize(f, 1<<20)
-	cr := csv.NewReader(br)
+// readCSV reads a CSV or TSV part, compressed with kind ("" = not compressed).
+func (as *assembly) readCSV(path string, f *os.File, kind string, size int64) error {
+	var src io.Reader = f
+	var cr *csv.Reader
+	pos := func() int64 { return cr.InputOffset() }
+	if kind != "" {
+		cnt := &counter{r: f}
+		d, err := decompressor(kind, bufio.NewReaderSize(cnt, 256<<10))
+		if err != nil {
+			return wrapInputErr(path, "", 0, err, "corrupt %s-compressed file", kind)
+		}
+		defer d.Close()
+		src = &lineLimit{r: d, path: path, kind: kind}
+		pos = func() int64 { return cnt.n }
+		as.formats[len(as.formats)-1] = "csv+" + kind
+	}
+	br := bufio.NewReaderSize(src, 1<<20)
+	cr = csv.NewReader(br)
 	cr.Comma = csvComma(path, br)
 	cr.ReuseRecord = false // records are kept until their group is parsed
 	header, err := readCSVHeader(path, cr)
 	if err != nil {
-		return nil, err
+		return err
 	}
-	sample, err := sampleCSV(path, cr, fileSize(f))
+	sample, err := sampleCSV(path, cr, size, pos)
 	if err != nil {
-		return nil, err
+		if len(as.ds.Parts) > 1 && len(sample.rows) == 0 && err == errEmptyCSV {
+			return nil // an empty part of a dataset
+		}
+		if err == errEmptyCSV {
+			return inputErr(path, "", 0, "empty table (0 rows)")
+		}
+		return err
 	}
 	cols, infos := csvColumns(header, sample.rows)
-	sel, err := selectColumns(path, cols, opt)
+	cols = as.withKeys(cols)
+	sel, err := as.selectPart(cols)
 	if err != nil {
-		return nil, err
+		return err
 	}
-	opt.BatchRows = ctl.batch(opt, len(sel.features))
-	cp := &csvPlan{sel: sel, batch: opt.BatchRows, threads: max(1, opt.Threads)}
-	if sel.id >= 0 && !ctl.noPass {
-		cp.idP = newPassCol(path, header[sel.id], true, infos[sel.id].integer)
+	opt := as.opt
+	opt.BatchRows = as.ctl.batch(opt, len(sel.features))
+	cp := &csvPlan{as: as, sel: sel, batch: opt.BatchRows, threads: max(1, opt.Threads), idKey: -1, labelKey: -1}
+	var idName, labelName string
+	var idInts, labelInts bool
+	if sel.id >= 0 {
+		idName, cp.idKey = cols[sel.id].name, cols[sel.id].key-1
+		idInts = cp.idKey < 0 && infos[sel.id].integer
 	}
-	if sel.label >= 0 && !ctl.noPass {
-		cp.labelP = newPassCol(path, header[sel.label], false, false)
+	if sel.label >= 0 {
+		labelName, cp.labelKey = cols[sel.label].name, cols[sel.label].key-1
+		labelInts = cp.labelKey < 0 && infos[sel.label].integer && infos[sel.label].nonEmpty > 0
 	}
-	b := newBuilder(path, sel.names(cols), opt, presizeRows(sample.estimate, len(sel.features), fileSize(f)), ctl)
+	cp.idP, cp.labelP = as.passCols(idName, labelName, idInts, labelInts)
+	widths := make([]int, len(sel.features))
+	for j := range widths {
+		widths[j] = 1
+	}
+	as.ensureBuilder(cols, sel, widths, sample.estimate)
 	rows := sample.rows
 	next := func() ([]string, error) { // the sampled records first, then the rest
 		if len(rows) > 0 {
@@ -90,13 +172,46 @@ func readCSV(path string, f *os.File, opt Options, ctl readCtl) (*Table, error) 
 		}
 		return cr.Read()
 	}
-	return cp.readAll(b, next, opt.Progress)
+	return cp.readAll(next)
+}
+
+// lineLimit refuses a decompressed stream with a line longer than
+// maxLineBytes: a small compressed file could otherwise hold one huge line
+// that the CSV reader would keep in memory whole.
+type lineLimit struct {
+	r          io.Reader
+	path, kind string
+	run        int // bytes since the last newline
+}
+
+// maxLineBytes bounds a line of a compressed CSV file (a row of 200,000
+// columns of 20 characters fits).
+const maxLineBytes = 4 << 20
+
+func (l *lineLimit) Read(p []byte) (int, error) {
+	n, err := l.r.Read(p)
+	for buf := p[:n]; ; {
+		k := bytes.IndexByte(buf, '\n')
+		if k < 0 {
+			l.run += len(buf)
+		} else {
+			l.run += k
+		}
+		if l.run > maxLineBytes {
+			return 0, inputErr(l.path, "", 0, "a line of the %s-compressed text is longer than %d MiB: not a CSV table", l.kind, maxLineBytes>>20)
+		}
+		if k < 0 {
+			break
+		}
+		l.run, buf = 0, buf[k+1:]
+	}
+	return n, err
 }
 
 // csvComma returns the field separator: a tab for a .tsv file or when the first
 // line holds tabs and no commas, else a comma.
 func csvComma(path string, br *bufio.Reader) rune {
-	if strings.EqualFold(filepath.Ext(path), ".tsv") {
+	if base, _ := stripCompression(path); strings.EqualFold(filepath.Ext(base), ".tsv") {
 		return '\t'
 	}
 	line, _ := br.Peek(min(br.Buffered()+br.Size(), 64<<10))
@@ -134,13 +249,17 @@ type csvSample struct {
 	estimate int64
 }
 
+// errEmptyCSV is returned by sampleCSV for a file without data rows.
+var errEmptyCSV = errors.New("no data rows")
+
 // sampleCSV reads up to csvSampleRows records after the header. The row count is
 // estimated from the bytes per sampled row, 5% over, so that the matrix is usually
-// allocated once (it grows if the estimate falls short). A file without data rows
-// is an error.
-func sampleCSV(path string, cr *csv.Reader, size int64) (csvSample, error) {
+// allocated once (it grows if the estimate falls short); pos tells how many bytes
+// of the file's size have been consumed. A file without data rows gives
+// errEmptyCSV.
+func sampleCSV(path string, cr *csv.Reader, size int64, pos func() int64) (csvSample, error) {
 	var s csvSample
-	headerEnd := cr.InputOffset()
+	headerEnd := pos()
 	sawEOF := false
 	for len(s.rows) < csvSampleRows {
 		rec, err := cr.Read()
@@ -154,13 +273,13 @@ func sampleCSV(path string, cr *csv.Reader, size int64) (csvSample, error) {
 		s.rows = append(s.rows, rec)
 	}
 	if len(s.rows) == 0 {
-		return s, inputErr(path, "", 0, "empty table (0 rows)")
+		return s, errEmptyCSV
 	}
 	s.estimate = int64(len(s.rows))
 	if !sawEOF {
-		perRow := float64(cr.InputOffset()-headerEnd) / float64(len(s.rows))
-		rest := float64(size - cr.InputOffset())
-		s.estimate += int64(1.05*rest/max(perRow, 1)) + 1024
+		perRow := float64(pos()-headerEnd) / float64(len(s.rows))
+		rest := float64(size - pos())
+		s.estimate += int64(1.05*max(rest, 0)/max(perRow, 1)) + 1024
 	}
 	return s, nil
 }
@@ -200,32 +319,18 @@ func csvColumns(header []string, sample [][]string) ([]colInfo, []csvInfo) {
 	return cols, infos
 }
 
-// readAll reads every record from next into the builder, chunk by chunk, and
-// returns the table.
-func (cp *csvPlan) readAll(b *builder, next func() ([]string, error), progress func(done, total int64)) (*Table, error) {
+// readAll reads every record from next into the builder, chunk by chunk.
+func (cp *csvPlan) readAll(next func() ([]string, error)) error {
 	for {
-		done, err := cp.chunk(b, next)
+		done, err := cp.chunk(cp.as.b, next)
 		if err != nil {
-			return nil, err
+			return err
 		}
-		if progress != nil {
-			progress(b.seen, -1)
-		}
+		cp.as.progress()
 		if done {
-			break
+			return nil
 		}
 	}
-	t, err := b.table()
-	if err != nil {
-		return nil, err
-	}
-	if cp.idP != nil {
-		t.ID = cp.idP.col
-	}
-	if cp.labelP != nil {
-		t.Label = cp.labelP.col
-	}
-	return t, nil
 }
 
 // csvError turns an encoding/csv error at data row row (0: header) into an InputError.
@@ -238,6 +343,9 @@ func csvError(path string, row int64, err error) error {
 }
 
 type csvPlan struct {
+	as          *assembly
+	idKey       int // folder key of the id, -1 when a column or none
+	labelKey    int
 	sel         selection
 	batch       int
 	threads     int // goroutines parsing numbers, at least 1
@@ -285,6 +393,15 @@ func (cp *csvPlan) chunk(b *builder, next func() ([]string, error)) (done bool, 
 	if err := cp.appendPass(b, keep, n); err != nil {
 		return false, err
 	}
+	if len(b.fresh) > 0 && cp.idP != nil {
+		b.noteIDs(func(i int) string {
+			if cp.idKey >= 0 {
+				v, _ := cp.as.keyValue(cp.idKey)
+				return v
+			}
+			return cp.ids[i]
+		})
+	}
 	b.advance(n)
 	return done, nil
 }
@@ -304,11 +421,11 @@ func (cp *csvPlan) readGroup(b *builder, next func() ([]string, error), n int) (
 			return false, csvError(b.file, b.seen+int64(n+len(cp.group))+1, err)
 		}
 		cp.group = append(cp.group, rec)
-		if cp.idP != nil {
+		if cp.idP != nil && cp.idKey < 0 {
 			cp.ids = append(cp.ids, strings.Clone(strings.TrimSpace(rec[cp.sel.id])))
 		}
-		if cp.labelP != nil {
-			cp.labels = append(cp.labels, cp.labelP.text(rec[cp.sel.label]))
+		if cp.labelP != nil && cp.labelKey < 0 {
+			cp.labels = append(cp.labels, cp.labelP.text(strings.TrimSpace(rec[cp.sel.label])))
 		}
 	}
 	return false, nil
@@ -317,17 +434,29 @@ func (cp *csvPlan) readGroup(b *builder, next func() ([]string, error), n int) (
 // appendPass appends the ids and labels of the chunk's kept rows: those of the n
 // rows with keep[i] set, or all n when keep is nil.
 func (cp *csvPlan) appendPass(b *builder, keep []bool, n int) error {
+	if cp.idKey >= 0 && cp.idP != nil {
+		v, null := cp.as.keyValue(cp.idKey)
+		if err := cp.idP.appendConst(v, null, n, keep, b.seen); err != nil {
+			return err
+		}
+	}
+	if cp.labelKey >= 0 && cp.labelP != nil {
+		v, null := cp.as.keyValue(cp.labelKey)
+		if err := cp.labelP.appendConst(v, null, n, keep, b.seen); err != nil {
+			return err
+		}
+	}
 	for i := 0; i < n; i++ {
 		if keep != nil && !keep[i] {
 			continue
 		}
-		if cp.idP != nil {
+		if cp.idP != nil && cp.idKey < 0 {
 			if err := cp.idP.appendCSVID(cp.ids[i], b.seen+int64(i)+1); err != nil {
 				return err
 			}
 		}
-		if cp.labelP != nil {
-			cp.labelP.col.Strings = append(cp.labelP.col.Strings, cp.labels[i])
+		if cp.labelP != nil && cp.labelKey < 0 {
+			cp.labelP.appendCSVLabel(cp.labels[i])
 		}
 	}
 	return nil
@@ -382,15 +511,28 @@ func (p *passCol) appendCSVID(s string, row int64) error {
 	}
 	if p.col.Ints != nil {
 		if v, ok := parseCanonicalInt(s); ok {
-			p.col.Ints = append(p.col.Ints, v)
+			p.appendInt(v)
 			return nil
 		}
-		strs := make([]string, len(p.col.Ints), cap(p.col.Ints))
-		for i, v := range p.col.Ints {
-			strs[i] = strconv.FormatInt(v, 10)
-		}
-		p.col.Ints, p.col.Strings = nil, strs
 	}
-	p.col.Strings = append(p.col.Strings, s)
+	p.appendText(s)
 	return nil
+}
+
+// appendCSVLabel appends a CSV label (trimmed): an empty cell is a null, and an
+// integer column turns to text at the first value that is not a canonical
+// integer.
+func (p *passCol) appendCSVLabel(s string) {
+	switch {
+	case s == "":
+		_ = p.appendNull(0)
+	case p.col.Ints != nil:
+		if v, ok := parseCanonicalInt(s); ok {
+			p.appendInt(v)
+			return
+		}
+		fallthrough
+	default:
+		p.appendText(s)
+	}
 }

@@ -50,15 +50,27 @@ const (
 	messageHeader     = 2 // Message.header: table of the tagged header
 	messageBodyLength = 3 // Message.bodyLength: long
 
-	recordBatchLength = 0 // RecordBatch.length: long
+	recordBatchLength  = 0 // RecordBatch.length: long
+	recordBatchNodes   = 1 // RecordBatch.nodes: [FieldNode]
+	recordBatchBuffers = 2 // RecordBatch.buffers: [Buffer]
+
+	dictionaryBatchData = 1 // DictionaryBatch.data: RecordBatch
+)
+
+// Sizes of the structs FieldNode { length: long; null_count: long } and Buffer {
+// offset: long; length: long } (Message.fbs, Schema.fbs).
+const (
+	fieldNodeSize = 16
+	bufferSize    = 16
 )
 
 // Tags of the unions Type and MessageHeader (Schema.fbs, Message.fbs).
 const (
-	typeTimestamp     = 10
-	typeUnion         = 14
-	headerSchema      = 1
-	headerRecordBatch = 3
+	typeTimestamp         = 10
+	typeUnion             = 14
+	headerSchema          = 1
+	headerDictionaryBatch = 2
+	headerRecordBatch     = 3
 )
 
 // Layout of the struct Block { offset: long; metaDataLength: int; bodyLength:
@@ -239,27 +251,42 @@ func ipcFileRows(f *os.File) (int64, error) {
 	if schema, present, ok := root.tableField(footerSchema); !present || !ok || !schemaOK(schema) {
 		return 0, errFooter
 	}
-	if _, err := ipcBlocks(root, footerDictionaries, "dictionary batch", footerStart, nil); err != nil {
-		return 0, err
-	}
-	return ipcBlocks(root, footerRecordBatches, "record batch", footerStart, func(off, metaLen int64) (int64, error) {
+	read := func(off, metaLen, bodyLen int64) ([]byte, error) {
 		meta := make([]byte, metaLen)
 		if _, err := f.ReadAt(meta, off); err != nil {
+			return nil, err
+		}
+		return meta, nil
+	}
+	if _, err := ipcBlocks(root, footerDictionaries, "dictionary batch", footerStart, func(off, metaLen, bodyLen int64) (int64, error) {
+		meta, err := read(off, metaLen, bodyLen)
+		if err != nil {
 			return 0, err
 		}
-		return batchRows(meta)
+		_, err = blockMessage(meta, headerDictionaryBatch, bodyLen)
+		return 0, err
+	}); err != nil {
+		return 0, err
+	}
+	return ipcBlocks(root, footerRecordBatches, "record batch", footerStart, func(off, metaLen, bodyLen int64) (int64, error) {
+		meta, err := read(off, metaLen, bodyLen)
+		if err != nil {
+			return 0, err
+		}
+		return blockMessage(meta, headerRecordBatch, bodyLen)
 	})
 }
 
 // ipcBlocks checks the blocks of what (a kind of batch) in the footer's vector
-// field f: each must lie in [0, end) of the file. With rows non-nil it returns the
-// sum of rows(offset, metadata length) over the blocks.
-func ipcBlocks(root fbTable, f int, what string, end int64, rows func(off, metaLen int64) (int64, error)) (int64, error) {
+// field f: each must lie in [0, end) of the file, and its message must pass
+// rows(offset, metadata length, body length), which returns its row count; it
+// returns the sum of the row counts.
+func ipcBlocks(root fbTable, f int, what string, end int64, rows func(off, metaLen, bodyLen int64) (int64, error)) (int64, error) {
 	start, count, ok := root.vector(f, blockSize)
 	if !ok {
 		return 0, errFooter
 	}
-	var total int64
+	var total, metas int64
 	for b := 0; b < count; b++ {
 		p := start + flatbuffers.UOffsetT(b*blockSize)
 		off := root.GetInt64(p + blockOffset)
@@ -268,12 +295,13 @@ func ipcBlocks(root fbTable, f int, what string, end int64, rows func(off, metaL
 		if off < 8 || metaLen < 8 || bodyLen < 0 || metaLen > end || bodyLen > end || off > end-metaLen-bodyLen {
 			return 0, fmt.Errorf("%s %d lies outside the file", what, b)
 		}
-		if rows == nil {
-			continue
+		// Blocks do not overlap: their metadata adds up to less than the file.
+		if metas += metaLen; metaLen > maxMessageBytes || metas > end {
+			return 0, fmt.Errorf("%s %d: the blocks' metadata adds up to more than the file", what, b)
 		}
-		n, err := rows(off, metaLen)
+		n, err := rows(off, metaLen, bodyLen)
 		if err != nil {
-			return 0, err
+			return 0, fmt.Errorf("%s %d: %w", what, b, err)
 		}
 		if n > math.MaxInt64-total {
 			return 0, errFooter
@@ -283,9 +311,11 @@ func ipcBlocks(root fbTable, f int, what string, end int64, rows func(off, metaL
 	return total, nil
 }
 
-// batchRows returns the row count of the record batch whose encapsulated message
-// (optional continuation marker, int32 length, Message) is meta.
-func batchRows(meta []byte) (int64, error) {
+// blockMessage checks the encapsulated message of a file block (optional
+// continuation marker, int32 length, Message): a header of the kind tag whose
+// record batch fits a body of bodyLen bytes (see batchOK). It returns the row
+// count of a record batch.
+func blockMessage(meta []byte, tag uint8, bodyLen int64) (int64, error) {
 	start := 4
 	if binary.LittleEndian.Uint32(meta) == continuation {
 		start = 8
@@ -294,16 +324,55 @@ func batchRows(meta []byte) (int64, error) {
 	if !ok {
 		return 0, errFooter
 	}
-	if tag, ok := msg.uint8Field(messageHeaderType); !ok || tag != headerRecordBatch {
+	if got, ok := msg.uint8Field(messageHeaderType); !ok || got != tag {
 		return 0, errFooter
 	}
 	hdr, present, ok := msg.tableField(messageHeader)
 	if !present || !ok {
 		return 0, errFooter
 	}
+	return batchOK(hdr, tag, bodyLen)
+}
+
+// batchOK checks the header hdr of a record batch (tag headerRecordBatch) or of
+// a dictionary batch's record batch (headerDictionaryBatch) against a body of
+// body bytes: a row count of 0 or more, field nodes of a length of 0 or more
+// with 0 ≤ null count ≤ length, and buffers that lie inside the body (the Arrow
+// library slices the body by these numbers without checking them). It returns
+// the record batch's row count.
+func batchOK(hdr fbTable, tag uint8, body int64) (int64, error) {
+	if tag == headerDictionaryBatch {
+		data, present, ok := hdr.tableField(dictionaryBatchData)
+		if !present || !ok {
+			return 0, errFooter
+		}
+		hdr = data
+	}
 	n, ok := hdr.int64Field(recordBatchLength)
 	if !ok || n < 0 {
 		return 0, errFooter
+	}
+	start, count, ok := hdr.vector(recordBatchNodes, fieldNodeSize)
+	if !ok {
+		return 0, errFooter
+	}
+	for k := range count {
+		p := start + flatbuffers.UOffsetT(k*fieldNodeSize)
+		length, nulls := hdr.GetInt64(p), hdr.GetInt64(p+8)
+		if length < 0 || nulls < 0 || nulls > length {
+			return 0, fmt.Errorf("field node %d announces %d values of which %d null", k, length, nulls)
+		}
+	}
+	start, count, ok = hdr.vector(recordBatchBuffers, bufferSize)
+	if !ok {
+		return 0, errFooter
+	}
+	for k := range count {
+		p := start + flatbuffers.UOffsetT(k*bufferSize)
+		off, length := hdr.GetInt64(p), hdr.GetInt64(p+8)
+		if off < 0 || length < 0 || off > body-length {
+			return 0, fmt.Errorf("buffer %d (offset %d, length %d) lies outside the body of %d bytes", k, off, length, body)
+		}
 	}
 	return n, nil
 }
@@ -477,9 +546,12 @@ func messageInfo(meta []byte, schema bool) (body int64, tag uint8, rows int64, e
 	switch {
 	case schema && !schemaOK(hdr):
 		return 0, 0, 0, errFooter
-	case tag == headerRecordBatch:
-		if rows, ok = hdr.int64Field(recordBatchLength); !ok || rows < 0 {
-			return 0, 0, 0, errFooter
+	case tag == headerRecordBatch, tag == headerDictionaryBatch:
+		if rows, err = batchOK(hdr, tag, body); err != nil {
+			return 0, 0, 0, err
+		}
+		if tag == headerDictionaryBatch {
+			rows = 0
 		}
 	}
 	return body, tag, rows, nil

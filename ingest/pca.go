@@ -34,6 +34,17 @@ type PCA struct {
 	K, D int
 	// N is the number of rows the components were fitted on.
 	N int64
+	// TotalVariance is the sum of the variances of the D columns (the trace of
+	// the covariance), so Σ Variance / TotalVariance is the share of the
+	// variance the components keep.
+	TotalVariance float64
+	// Passes is the number of passes over the rows that the fit made: 1 for the
+	// exact covariance (D ≤ RandomizedAbove), more for the randomised iteration.
+	Passes int
+	// AngleBound is, for the randomised iteration, the largest residual bound
+	// on the angle (radians) between a well separated component and the exact
+	// one (see the package documentation); 0 for the exact path.
+	AngleBound float64
 }
 
 // FitPCA computes the first k principal components of the N×D matrix m, on up to
@@ -48,10 +59,18 @@ type PCA struct {
 // is then decomposed with gonum's mat.EigenSym. Memory is O(D²) plus
 // O(PCABlockRows·D) per thread.
 //
+// Above RandomizedAbove columns, FitPCA uses randomised subspace iteration
+// instead (see the package documentation): a few passes over the rows, O(N·D·k)
+// time and O(D·k) memory beyond the matrix, components that agree with the exact
+// ones to the accuracy stated there.
+//
 // It returns an error if k < 1, k > D, N < 2, or the eigendecomposition fails.
 func FitPCA(m core.Matrix, k, threads int) (*PCA, error) {
 	if k < 1 || k > m.D {
 		return nil, fmt.Errorf("pca: k = %d components requested for D = %d columns; want 1 ≤ k ≤ D", k, m.D)
+	}
+	if m.D > RandomizedAbove {
+		return fitSubspace(m, k, threads)
 	}
 	acc := newCovAcc(m.D, threads)
 	acc.add(m)
@@ -229,7 +248,10 @@ func (a *covAcc) pca(k int) (*PCA, error) {
 	vals := eig.Values(nil) // ascending
 	var vecs mat.Dense
 	eig.VectorsTo(&vecs)
-	p := &PCA{Mean: append([]float64(nil), a.mean...), Components: make([]float64, k*d), Variance: make([]float64, k), K: k, D: d, N: a.n}
+	p := &PCA{Mean: append([]float64(nil), a.mean...), Components: make([]float64, k*d), Variance: make([]float64, k), K: k, D: d, N: a.n, Passes: 1}
+	for c := range d {
+		p.TotalVariance += math.Max(cov.At(c, c), 0)
+	}
 	for c := 0; c < k; c++ {
 		src := d - 1 - c
 		p.Variance[c] = math.Max(vals[src], 0)
@@ -272,7 +294,11 @@ func (p *PCA) ProjectTo(dst []float64, m core.Matrix, threads int) {
 	}
 	comps := blas64.General{Rows: p.K, Cols: p.D, Stride: p.D, Data: p.Components}
 	scratch := make([][]float64, max(1, threads)) // centred rows, per worker
-	par.Blocks(m.N, PCABlockRows, threads, func(w, _, lo, hi int) {
+	block := PCABlockRows
+	if p.D > RandomizedAbove {
+		block = subspaceBlock(p.D) // wide rows: smaller blocks keep the scratch small
+	}
+	par.Blocks(m.N, block, threads, func(w, _, lo, hi int) {
 		n := hi - lo
 		if cap(scratch[w]) < n*p.D {
 			scratch[w] = make([]float64, n*p.D)

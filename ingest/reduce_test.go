@@ -102,7 +102,7 @@ func TestReadReducedChangedFile(t *testing.T) {
 			os.WriteFile(path, []byte(changed), 0o644)
 		}
 	}}, 2)
-	wantInputError(t, err, path, "", 0, "file changed between the two passes")
+	wantInputError(t, err, path, "", 0, "file changed between the passes")
 
 	// Errors of Read come through; k beyond D is refused.
 	_, _, err = ReadReduced(path, Options{Features: []string{"zz"}}, 2)

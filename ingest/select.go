@@ -3,6 +3,7 @@ package ingest
 import (
 	"fmt"
 	"path"
+	"slices"
 	"strings"
 )
 
@@ -11,12 +12,17 @@ type colInfo struct {
 	name    string
 	numeric bool   // usable as a feature
 	typ     string // type name for messages
+	vector  bool   // a list of numbers: several matrix columns
+	width   int    // a vector's fixed width, 0 when each row tells
+	integer bool   // a scalar column of integers
+	key     int    // 1 + the folder key it holds, 0 for a column of the file
 }
 
 // selection is the outcome of column selection: indices into the input columns.
 type selection struct {
-	features  []int // in matrix column order
-	id, label int   // -1 when not requested
+	features  []int    // in matrix column order
+	patterns  []string // the Options.Features entry that chose each ("" by default)
+	id, label int      // -1 when not requested
 }
 
 func (s selection) names(cols []colInfo) []string {
@@ -69,12 +75,13 @@ func selectColumns(file string, cols []colInfo, opt Options) (selection, error) 
 		for i, c := range cols {
 			if c.numeric && !passThrough(i) {
 				sel.features = append(sel.features, i)
+				sel.patterns = append(sel.patterns, "")
 			}
 		}
 		if len(sel.features) == 0 {
 			return sel, inputErr(file, "", 0, "no numeric feature columns (the table has %s)", describeCols(cols, 6))
 		}
-		return sel, nil
+		return sel, checkUnique(file, cols, sel)
 	}
 	for _, f := range opt.Features {
 		if !isPattern(f) {
@@ -88,6 +95,7 @@ func selectColumns(file string, cols []colInfo, opt Options) (selection, error) 
 			if !taken[i] {
 				taken[i] = true
 				sel.features = append(sel.features, i)
+				sel.patterns = append(sel.patterns, f)
 			}
 			continue
 		}
@@ -95,7 +103,30 @@ func selectColumns(file string, cols []colInfo, opt Options) (selection, error) 
 			return sel, err
 		}
 	}
-	return sel, nil
+	return sel, checkUnique(file, cols, sel)
+}
+
+// checkUnique refuses a selected column (feature, id or label) whose name
+// another column of the table has too: which one was meant is unknown.
+func checkUnique(file string, cols []colInfo, sel selection) error {
+	count := make(map[string]int, len(cols))
+	for _, c := range cols {
+		count[c.name]++
+	}
+	used := append(slices.Clone(sel.features), sel.id, sel.label)
+	for _, i := range used {
+		if i < 0 || count[cols[i].name] < 2 {
+			continue
+		}
+		var at []int
+		for k, c := range cols {
+			if c.name == cols[i].name {
+				at = append(at, k+1)
+			}
+		}
+		return inputErr(file, cols[i].name, 0, "two columns have this name (columns %d and %d); rename one", at[0], at[1])
+	}
+	return nil
 }
 
 // addMatches appends the numeric columns that the glob pattern matches and that
@@ -117,6 +148,7 @@ func (sel *selection) addMatches(file, pattern string, cols []colInfo, taken []b
 		if !taken[i] {
 			taken[i] = true
 			sel.features = append(sel.features, i)
+			sel.patterns = append(sel.patterns, pattern)
 		}
 	}
 	switch {
