@@ -90,7 +90,9 @@ func newDocModel(width int, seed uint64) *docModel {
 }
 
 // DocumentTopicName is the label of topic t.
-func DocumentTopicName(t int) string { return fmt.Sprintf("theme %d · topic %02d", t%DocumentThemes+1, t+1) }
+func DocumentTopicName(t int) string {
+	return fmt.Sprintf("theme %d · topic %02d", t%DocumentThemes+1, t+1)
+}
 
 // row fills out (width values) with document i and returns its main topic.
 // Each row has its own random stream, so rows can be made in any order.
