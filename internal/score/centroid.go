@@ -22,6 +22,18 @@ import (
 // label are left out. It returns NaN with fewer than 3 groups. It panics if
 // the lengths disagree.
 func CentroidRank(x core.Matrix, y []float64, dims int, labels []string) float64 {
+	return centroidRank(x, y, dims, labels, false)
+}
+
+// CentroidRankUnit is CentroidRank for inputs compared by direction (the
+// cosine distance): the input centroids are the means of the rows scaled to
+// unit length (rows of zeros left as they are), compared by the Euclidean
+// distance, which for unit vectors orders pairs as the cosine distance does.
+func CentroidRankUnit(x core.Matrix, y []float64, dims int, labels []string) float64 {
+	return centroidRank(x, y, dims, labels, true)
+}
+
+func centroidRank(x core.Matrix, y []float64, dims int, labels []string, unit bool) float64 {
 	if len(labels) != x.N || len(y) != x.N*dims {
 		panic("score.CentroidRank: needs N labels and N×dims map values")
 	}
@@ -50,8 +62,18 @@ func CentroidRank(x core.Matrix, y []float64, dims int, labels []string) float64
 		}
 		g := group[l]
 		count[g]++
+		scale := 1.0
+		if unit {
+			var ss float64
+			for _, v := range x.Row(i) {
+				ss += float64(v) * float64(v)
+			}
+			if ss > 0 {
+				scale = 1 / math.Sqrt(ss)
+			}
+		}
 		for c, v := range x.Row(i) {
-			cx[g*x.D+c] += float64(v)
+			cx[g*x.D+c] += float64(v) * scale
 		}
 		for c := 0; c < dims; c++ {
 			cy[g*dims+c] += y[i*dims+c]

@@ -3,12 +3,13 @@
 // preservation, the k-nearest-neighbour accuracy of labels, and the rank
 // correlation of group centroid distances, on a seeded sample of rows (Sample).
 //
-// Distances come from a Space: InputSpace for the rows of the input matrix,
-// MapSpace for a map, both with the squared Euclidean distance, accumulated in
-// float64. The neighbourhood and label scores use only the order of the
-// distances from each row, with equal distances ordered by row index, so they are
-// exact and well defined; a Space with another metric changes the order, not
-// the scores.
+// Distances come from a Space: InputSpace for the rows of the input matrix
+// and MapSpace for a map, both with the squared Euclidean distance, or
+// CosineSpace for input rows compared by direction, with the cosine distance
+// 1 − ⟨x_i, x_j⟩/(‖x_i‖·‖x_j‖); all accumulated in float64. The neighbourhood
+// and label scores use only the order of the distances from each row, with
+// equal distances ordered by row index, so they are exact and well defined; a
+// Space with another metric changes the order, not the scores.
 //
 // # Neighbourhood scores
 //
@@ -43,7 +44,9 @@
 //
 // CentroidRank compares the layout of the labelled groups: the Euclidean
 // distances between every two group centroids (means of the group's rows) in the
-// input and in the map, correlated by Kendall's rank correlation (Kendall 1938,
+// input and in the map (CentroidRankUnit: the centroids of the rows scaled to
+// unit length, for inputs compared by direction), correlated by Kendall's rank
+// correlation (Kendall 1938,
 // "A new measure of rank correlation", Biometrika 30) with gonum's stat.Kendall:
 //
 //	τ = (concordant − discordant pairs of pairs) / (number of pairs of pairs).
