@@ -28,7 +28,24 @@ func inputRows(t *ingest.Table) (rows []int64, known bool) {
 	if t.Skipped == 0 {
 		return nil, true
 	}
-	return nil, false
+	if int64(len(t.SkippedRows)) != t.Skipped {
+		return nil, false
+	}
+	for _, s := range t.SkippedRows {
+		if s.File != t.SkippedRows[0].File {
+			return nil, false
+		}
+	}
+	rows = make([]int64, 0, t.N)
+	next := 0 // the next dropped row in SkippedRows (1-based rows, ascending)
+	for r := int64(0); len(rows) < t.N; r++ {
+		if next < len(t.SkippedRows) && t.SkippedRows[next].Row-1 == r {
+			next++
+			continue
+		}
+		rows = append(rows, r)
+	}
+	return rows, true
 }
 
 // saveRows records the input row numbers of a map of n rows in run.

@@ -179,6 +179,9 @@ func readSheet(path string, names []string) ([]*sheetColumn, error) {
 		return nil, &InputError{File: path, Reason: errorText(err), Err: err}
 	}
 	defer f.Close()
+	if st, err := f.Stat(); err == nil && st.IsDir() {
+		return nil, &InputError{File: path, Reason: "is a directory of table parts, which re-drawing does not read: give one table holding the column with --table FILE --on ID"}
+	}
 	head := make([]byte, 8)
 	k, _ := io.ReadFull(f, head)
 	head = head[:k]

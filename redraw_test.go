@@ -115,7 +115,8 @@ func TestRedrawByInputColumns(t *testing.T) {
 	if _, err := png.DecodeConfig(f); err != nil {
 		t.Errorf("map.png: %v", err)
 	}
-	for _, bad := range []RedrawOptions{{By: "nope"}, {By: "depth", As: "colour"}, {Table: "x.csv"}, {By: "depth", Opacity: 2}} {
+	for _, bad := range []RedrawOptions{{By: "nope"}, {By: "depth", As: "colour"}, {Table: "x.csv"}, {By: "depth", Opacity: 2},
+		{By: "depth", Table: t.TempDir(), On: "cell"}, {By: "depth", Table: filepath.Join(t.TempDir(), "missing.csv"), On: "cell"}} {
 		if _, err := Redraw(ctx, dir, bad, nil); err == nil || !IsUserFault(err) {
 			t.Errorf("%+v: error %v, want a user fault", bad, err)
 		}
@@ -149,19 +150,36 @@ func TestRedrawJoinsSecondTable(t *testing.T) {
 	}
 }
 
-// A run without an id that dropped rows, whose table did not say which,
-// cannot be matched by row number: Redraw says so and how to colour it.
-func TestRedrawSkipInvalidWithoutRowNumbers(t *testing.T) {
-	dir, csvPath := smallRun(t, 60, false, true)
+// A run without an id that dropped a row is matched on the input row
+// numbers it recorded: each map row gets its own row's value.
+func TestRedrawSkipInvalidMatchesRowNumbers(t *testing.T) {
+	dir, _ := smallRun(t, 60, false, true)
 	run := openRun(t, dir)
-	if _, known, err := loadRows(run, 59); err != nil || known {
-		t.Fatalf("rows recorded as known (%v)", err)
+	rows, known, err := loadRows(run, 59)
+	if err != nil || !known || len(rows) != 59 || rows[4] != 4 || rows[5] != 6 || rows[58] != 59 {
+		t.Fatalf("recorded rows %v (known %v, %v), want 0…4, 6…59", rows, known, err)
 	}
-	_, err := Redraw(context.Background(), dir, RedrawOptions{By: "depth"}, nil)
-	if err == nil || !IsUserFault(err) || !strings.Contains(err.Error(), "did not record which input rows") {
-		t.Fatalf("error %v, want a user fault saying the rows are unknown", err)
+	s, err := settingsOf(run)
+	if err != nil {
+		t.Fatal(err)
 	}
-	_ = csvPath
+	v, err := readFinishedMap(run, s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	at := make([]int, 59)
+	vals, err := inputColumn(run, s, &v, "depth", at, &notes{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i, r := range at {
+		if got, want := vals.number(r), float64(rows[i]); got != want {
+			t.Fatalf("map row %d has depth %g, want its input row's %g", i, got, want)
+		}
+	}
+	if _, err := Redraw(context.Background(), dir, RedrawOptions{By: "depth"}, nil); err != nil {
+		t.Fatal(err)
+	}
 }
 
 func TestWriteMapsWarnsOnceForMissingGlyphs(t *testing.T) {
