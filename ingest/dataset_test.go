@@ -243,3 +243,29 @@ func readInputs(t *testing.T, inputs ...string) (*Table, error) {
 	got, _, err := ds.Read(Options{}, Reduction{})
 	return got, err
 }
+
+// TestReadRows: the rows read by position are those of the full read (after
+// skipped rows), with the same fingerprint.
+func TestReadRows(t *testing.T) {
+	dir := t.TempDir()
+	putFile(t, dir, "a.csv", []byte("x,y\n1,2\nNaN,3\n4,5\n"))
+	putFile(t, dir, "b.csv", []byte("x,y\n6,7\n8,9\n"))
+	ds, err := OpenDataset(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	full, _, err := ds.Read(Options{SkipInvalid: true}, Reduction{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, hash, err := ds.ReadRows(Options{SkipInvalid: true, BatchRows: 1}, []int32{0, 2, 3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if hash != full.Hash || got.N != 3 || !equalBits(got.Data, []float32{1, 2, 6, 7, 8, 9}) {
+		t.Fatalf("%v %v", got, hash == full.Hash)
+	}
+	if _, _, err := ds.ReadRows(Options{SkipInvalid: true}, []int32{4}); err == nil {
+		t.Error("a row beyond the table accepted")
+	}
+}

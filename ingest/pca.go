@@ -41,6 +41,10 @@ type PCA struct {
 	// Passes is the number of passes over the rows that the fit made: 1 for the
 	// exact covariance (D ≤ RandomizedAbove), more for the randomised iteration.
 	Passes int
+	// Normalised reports that the rows were scaled to unit Euclidean length
+	// before the fit (Reduction.Normalise); Project and ProjectTo then scale
+	// each row the same way first.
+	Normalised bool
 	// AngleBound is, for the randomised iteration, the largest residual bound
 	// on the angle (radians) between a well separated component and the exact
 	// one (see the package documentation); 0 for the exact path.
@@ -284,7 +288,9 @@ func (p *PCA) Project(m core.Matrix, threads int) []float64 {
 }
 
 // ProjectTo is Project writing into dst, which must have length m.N×K; it panics
-// otherwise or if m.D != p.D.
+// otherwise or if m.D != p.D. With Normalised, each row is first scaled to unit
+// length, as the fit saw it (float32(x·(1/‖x‖)), the norm in float64); a row
+// of zeros then gives NaN scores.
 func (p *PCA) ProjectTo(dst []float64, m core.Matrix, threads int) {
 	if m.D != p.D {
 		panic(fmt.Sprintf("ingest: PCA fitted on %d columns applied to %d", p.D, m.D))
@@ -306,6 +312,13 @@ func (p *PCA) ProjectTo(dst []float64, m core.Matrix, threads int) {
 		c := scratch[w][:n*p.D]
 		for i := 0; i < n; i++ {
 			row := m.Data[(lo+i)*p.D : (lo+i+1)*p.D]
+			if p.Normalised {
+				inv := 1 / math.Sqrt(sumSquares(row))
+				for j, v := range row {
+					c[i*p.D+j] = float64(float32(float64(v)*inv)) - p.Mean[j]
+				}
+				continue
+			}
 			for j, v := range row {
 				c[i*p.D+j] = float64(v) - p.Mean[j]
 			}
@@ -314,4 +327,13 @@ func (p *PCA) ProjectTo(dst []float64, m core.Matrix, threads int) {
 			blas64.General{Rows: n, Cols: p.D, Stride: p.D, Data: c}, comps, 0,
 			blas64.General{Rows: n, Cols: p.K, Stride: p.K, Data: dst[lo*p.K : hi*p.K]})
 	})
+}
+
+// sumSquares returns Σ v² in float64.
+func sumSquares(row []float32) float64 {
+	var ss float64
+	for _, v := range row {
+		ss += float64(v) * float64(v)
+	}
+	return ss
 }

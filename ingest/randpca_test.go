@@ -235,7 +235,8 @@ func TestReduceWide(t *testing.T) {
 }
 
 // TestReduceNormalised: with Normalise, the reduction is the PCA of the
-// L2-normalised rows, and a zero row is refused.
+// L2-normalised rows (x·(1/‖x‖)) and their scores, Project of a normalised fit
+// scales raw rows the same way, and a zero row is refused.
 func TestReduceNormalised(t *testing.T) {
 	m := factorTable(300, 40, 5, 3, 0.7, 0.5, 4)
 	unit := core.Matrix{N: m.N, D: m.D, Data: slices.Clone(m.Data)}
@@ -245,11 +246,13 @@ func TestReduceNormalised(t *testing.T) {
 		for _, v := range row {
 			ss += float64(v) * float64(v)
 		}
+		inv := 1 / math.Sqrt(ss)
 		for j, v := range row {
-			row[j] = float32(float64(v) / math.Sqrt(ss))
+			row[j] = float32(float64(v) * inv)
 		}
 	}
 	ref := mustFit(t, unit, 4)
+	refY := ref.Project(unit, 1)
 	names := make([]string, m.D)
 	for j := range names {
 		names[j] = fmt.Sprintf("x%d", j)
@@ -260,8 +263,17 @@ func TestReduceNormalised(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if !slices.Equal(p.Components, ref.Components) || got.Hash != Fingerprint(m) {
+	if !slices.Equal(p.Components, ref.Components) || got.Hash != Fingerprint(m) || !p.Normalised {
 		t.Error("not the PCA of the normalised rows, or the hash is not the input's")
+	}
+	for i, v := range refY {
+		if got.Data[i] != float32(v) {
+			t.Fatalf("score %d = %v, want %v", i, got.Data[i], float32(v))
+		}
+	}
+	// Project scales the rows of a normalised fit itself.
+	if y := p.Project(m, 2); !slices.Equal(y, refY) {
+		t.Error("Project of the raw rows is not the projection of the unit rows")
 	}
 	clear(m.Data[5*m.D : 6*m.D])
 	path = writeTableFile(t, &Table{Matrix: m, Features: names})

@@ -148,10 +148,7 @@ func (r *reduction) normalised(feed func(core.Matrix)) batchSink {
 		if r.red.Normalise {
 			for i := range rows.N {
 				row := rows.Data[i*rows.D : (i+1)*rows.D]
-				var ss float64
-				for _, v := range row {
-					ss += float64(v) * float64(v)
-				}
+				ss := sumSquares(row)
 				if ss == 0 {
 					return inputErr(r.name(), "", 0, "row %d (counting kept rows) has only zeros: the cosine distance needs a row of non-zero length", r.kept+int64(i)+1)
 				}
@@ -177,6 +174,7 @@ func (r *reduction) fit(first *Table) (*PCA, error) {
 		if err != nil {
 			return nil, fmt.Errorf("reading %s: %w", r.name(), err)
 		}
+		p.Normalised = r.red.Normalise
 		return p, nil
 	}
 	for {
@@ -193,7 +191,11 @@ func (r *reduction) fit(first *Table) (*PCA, error) {
 		r.pass++
 	}
 	r.pass = r.passes - 1 // skip ahead to the projection
-	return r.sub.result()
+	p, err := r.sub.result()
+	if p != nil {
+		p.Normalised = r.red.Normalise
+	}
+	return p, err
 }
 
 // again reads every row once more into sink and checks that they are the rows
@@ -217,10 +219,9 @@ func (r *reduction) project(first *Table, p *PCA) (*Table, error) {
 	scores := make([]float32, first.N*k)
 	var buf []float64
 	at := 0
-	err := r.again(first, r.normalised(func(rows core.Matrix) {
+	err := r.again(first, func(rows core.Matrix) error { // ProjectTo scales the rows of a normalised fit
 		if at+rows.N*k > len(scores) {
-			at = len(scores) + 1 // more rows than the first pass: reported by again
-			return
+			return inputErr(r.name(), "", 0, "file changed between the passes of the streaming PCA")
 		}
 		if cap(buf) < rows.N*k {
 			buf = make([]float64, rows.N*k)
@@ -231,7 +232,8 @@ func (r *reduction) project(first *Table, p *PCA) (*Table, error) {
 			scores[at+i] = float32(v)
 		}
 		at += len(buf)
-	}))
+		return nil
+	})
 	if err != nil {
 		return nil, err
 	}
