@@ -31,6 +31,7 @@ type Result struct {
 	Dir       string // the run directory
 	Embedding string // path of embedding.parquet
 	MapImage  string // path of map.png
+	MapPage   string // path of map.html, the interactive map
 	Report    *Report
 	// Map holds the N×Dims map positions, row-major, rows in input order
 	// (nil when Resume found the run already finished).
@@ -121,16 +122,16 @@ func embed(ctx context.Context, src Source, dir string, s Settings, rt Runtime, 
 	if err != nil {
 		return nil, err
 	}
-	s.Input = path
+	s.Input, s.Inputs = path, src.inputs()
 	if id != "" {
 		s.ID = id
 	}
 	if label != "" {
 		s.Label = label
 	}
-	fp, err := checkpoint.FingerprintFile(s.Input)
+	fp, err := inputFingerprint(s)
 	if err != nil {
-		return nil, &ingest.InputError{File: s.Input, Reason: errorText(err), Err: err}
+		return nil, &ingest.InputError{File: s.inputName(), Reason: errorText(err), Err: err}
 	}
 	params, err := json.Marshal(s)
 	if err != nil {
@@ -167,7 +168,7 @@ func clearRun(run *checkpoint.Run) error {
 			continue
 		}
 		if n == checkpoint.ManifestName || n == checkpoint.PrevManifestName || strings.HasSuffix(n, checkpoint.Extension) ||
-			n == FileEmbedding || n == FileMap || n == FileReport {
+			n == FileEmbedding || n == FileMap || n == FileMapPage || n == FileReport {
 			if err := os.Remove(filepath.Join(run.Dir, n)); err != nil {
 				return fmt.Errorf("replacing the run in %s: %w", run.Dir, err)
 			}
@@ -189,7 +190,7 @@ func sameSettings(run *checkpoint.Run, src Source, s Settings) error {
 		if err != nil {
 			return err
 		}
-		s.Input = abs
+		s.Input, s.Inputs = abs, src.inputs()
 	} else {
 		s.Input, s.ID, s.Label = old.Input, old.ID, old.Label
 	}
@@ -284,7 +285,7 @@ func settingsOf(run *checkpoint.Run) (Settings, error) {
 }
 
 func newResult(run *checkpoint.Run) *Result {
-	return &Result{Dir: run.Dir, Embedding: run.Path(FileEmbedding), MapImage: run.Path(FileMap)}
+	return &Result{Dir: run.Dir, Embedding: run.Path(FileEmbedding), MapImage: run.Path(FileMap), MapPage: run.Path(FileMapPage)}
 }
 
 // job holds one invocation's state while it runs the phases.

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"math"
 
 	"nightjar"
 )
@@ -17,14 +18,21 @@ func runEmbed(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	fs := newFlags("embed", "map a feature table into a run directory (embedding.parquet, map.png, report.json)", embedExample, stderr, "input", "run")
 	runDir := fs.String("run", "", "run directory to create; it holds checkpoints and the outputs")
 	orContinue := fs.Bool("or-continue", false, "for batch jobs that may be started again: start the run, or continue it if the run directory already holds the same run (refused if its settings differ)")
-	addSettings(fs, &s)
+	var inputs []string
+	addSettings(fs, &s, "input")
+	fs.Func("input", inputHelp(), func(v string) error { inputs = append(inputs, v); return nil })
 	addRuntime(fs, &r, &quiet)
-	if _, err := parseFlags(fs, args, 0); err != nil {
+	// Further arguments are inputs too: a shell expands --input parts/*.parquet
+	// into several paths.
+	more, err := parseFlags(fs, args, math.MaxInt)
+	if err != nil {
 		return err
 	}
-	if s.Input == "" {
+	inputs = append(inputs, more...)
+	if len(inputs) == 0 {
 		return usagef("embed: --input FILE is required (try: %s)", embedExample)
 	}
+	s.Input = inputs[0]
 	if *runDir == "" {
 		return usagef("embed: --run DIR is required (try: %s)", embedExample)
 	}
@@ -35,7 +43,7 @@ func runEmbed(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if *orContinue {
 		embed = nightjar.EmbedOrResume
 	}
-	res, err := embed(ctx, nightjar.FromFile(s.Input), *runDir, s, r, newUI(stderr, quiet))
+	res, err := embed(ctx, nightjar.FromFiles(inputs...), *runDir, s, r, newUI(stderr, quiet))
 	if err != nil {
 		return err
 	}
@@ -43,11 +51,21 @@ func runEmbed(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	return nil
 }
 
+// inputHelp is the help of the "input" option of Settings.
+func inputHelp() string {
+	for _, o := range nightjar.SettingOptions() {
+		if o.Name == "input" {
+			return o.Help
+		}
+	}
+	return "feature table"
+}
+
 // printResult prints where a finished run's outputs are, its headline
 // scores and the caution.
 func printResult(stdout io.Writer, res *nightjar.Result) {
-	fmt.Fprintf(stdout, "run:       %s\nembedding: %s\nmap:       %s\nreport:    %s\n",
-		res.Dir, res.Embedding, res.MapImage, res.Dir+"/"+nightjar.FileReport)
+	fmt.Fprintf(stdout, "run:       %s\nembedding: %s\nmap:       %s\npage:      %s (open it in a browser)\nreport:    %s\n",
+		res.Dir, res.Embedding, res.MapImage, res.MapPage, res.Dir+"/"+nightjar.FileReport)
 	if res.AlreadyFinished {
 		fmt.Fprintf(stdout, "%s is finished already; nothing to do\n", res.Dir)
 	}
