@@ -221,6 +221,10 @@ func sweep(ctx context.Context, o *benchOptions, sizes []int, meta *bench.Meta) 
 		}
 		meta.Rows = ds.Rows
 		combos := o.onTable(ds)
+		if w := shedMemory(); w != "" && !slices.Contains(meta.Notes, w) {
+			meta.Notes = append(meta.Notes, w)
+			o.u.Warn(strings.TrimPrefix(w, "Warning: "))
+		}
 		if si == 0 {
 			o.warm(combos[0], ds.Rows)
 		}

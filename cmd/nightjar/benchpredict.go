@@ -51,6 +51,10 @@ func runPredict(ctx context.Context, o *benchOptions, stdout io.Writer) error {
 	}
 	meta := o.meta()
 	meta.Rows = full.Rows
+	if w := shedMemory(); w != "" {
+		meta.Notes = append(meta.Notes, w)
+		o.u.Warn(strings.TrimPrefix(w, "Warning: "))
+	}
 	o.warm(onSubsample(resolved[0], subs[0]), subs[0].Rows)
 	ladder := make([][]nightjar.LadderRun, len(combos))
 	var results []bench.Result
