@@ -34,7 +34,7 @@ func (j *job) finish(y []float64) error {
 	if j.rt.ScoreSample > 0 {
 		t1 := time.Now()
 		j.obs.Note(fmt.Sprintf("scoring the map on %d sampled rows", min(j.rt.ScoreSample, t.N)))
-		q := scoreMap(t.Matrix, y, j.s.Dims, labels, scoreK, j.rt.ScoreSample, j.s.Seed, j.rt.Threads)
+		q := j.scoreRun(y, labels)
 		q.KL, q.KLMethod = finalKL(j.P, y, j.s, j.rep.Optimiser.KL)
 		j.rep.Quality = &q
 		j.rep.Phases["scores"] = time.Since(t1).Seconds()

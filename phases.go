@@ -35,9 +35,13 @@ func idLikeColumns(features []string) []string {
 // readInput reads the table and checks (on resume) that it is the one the run began with.
 func (j *job) readInput(resumed bool) error {
 	t0 := time.Now()
-	fp, err := checkpoint.FingerprintFile(j.s.Input)
+	fp, err := inputFingerprint(j.s)
 	if err != nil {
-		return &ingest.InputError{File: j.s.Input, Reason: errorText(err), Err: err}
+		var ie *ingest.InputError
+		if errors.As(err, &ie) {
+			return err
+		}
+		return &ingest.InputError{File: j.s.inputName(), Reason: errorText(err), Err: err}
 	}
 	bar := phaseBar(j.obs, "reading rows", -1)
 	if j.rt.ReturnMemory {
@@ -54,7 +58,7 @@ func (j *job) readInput(resumed bool) error {
 		return err
 	}
 	if pca != nil {
-		j.rep.Reduced = &Reduced{From: pca.D, To: pca.K, Variance: pca.Variance}
+		j.recordReduction(pca, time.Since(t0).Seconds())
 	}
 	fp.ValuesHash = t.Hash
 	// A run killed after its manifest was first written but before the
@@ -76,6 +80,13 @@ func (j *job) readInput(resumed bool) error {
 		return &ingest.InputError{File: j.s.Input, Reason: fmt.Sprintf("the table has %d feature column(s) (%s); a %d-D map needs at least %d", t.D, strings.Join(t.Features, ", "), j.s.Dims, j.s.Dims)}
 	}
 	if err := checkTable(j.s, t); err != nil {
+		return err
+	}
+	ds, err := openInput(j.s)
+	if err != nil {
+		return err
+	}
+	if err := j.describeInput(ds, t); err != nil {
 		return err
 	}
 	if len(j.s.Features) == 0 {
@@ -135,16 +146,17 @@ func collectWhileReading(progress func(done, total int64)) func(done, total int6
 	}
 }
 
-// readTable reads the run's input as its settings say: all at once, or
-// projected onto principal components in two streamed passes (Reduce), in
-// which case the PCA is returned too. progress may be nil.
+// readTable reads the run's input (every part of it) as its settings say:
+// all at once, or projected onto principal components in streamed passes
+// (Reduce; see Settings.reduction), in which case the PCA is returned too.
+// progress may be nil.
 func readTable(s Settings, threads int, progress func(done, total int64)) (*ingest.Table, *ingest.PCA, error) {
-	opt := ingest.Options{Features: s.Features, ID: s.ID, Label: s.Label, SkipInvalid: s.SkipInvalid, Progress: progress, Threads: threads}
-	if s.Reduce > 0 {
-		return ingest.ReadReduced(s.Input, opt, s.Reduce)
+	ds, err := openInput(s)
+	if err != nil {
+		return nil, nil, err
 	}
-	t, err := ingest.Read(s.Input, opt)
-	return t, nil, err
+	opt := ingest.Options{Features: s.Features, ID: s.ID, Label: s.Label, SkipInvalid: s.SkipInvalid, Progress: progress, Threads: threads}
+	return ds.Read(opt, s.reduction())
 }
 
 // affinities loads P from the run directory, or computes it from the

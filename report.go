@@ -28,7 +28,19 @@ type Report struct {
 	Rows       int      `json:"rows"`
 	Features   int      `json:"features"`
 	Skipped    int64    `json:"skipped_rows"`
-	Reduced    *Reduced `json:"reduced,omitempty"`
+	// SkippedRowsFile names the file of the run directory that lists the
+	// skipped rows (FileSkippedRows), when there are any.
+	SkippedRowsFile string `json:"skipped_rows_file,omitempty"`
+	// Parts lists the files read, in order, when the input has several.
+	Parts []string `json:"parts,omitempty"`
+	// FeatureColumns are the input columns the features came from, vectors
+	// with their width.
+	FeatureColumns []FeatureColumn `json:"feature_columns,omitempty"`
+	// DuplicateIDs counts the ids that occur more than once.
+	DuplicateIDs *DuplicateIDs `json:"duplicate_ids,omitempty"`
+	// Warnings repeats the warnings printed about the input.
+	Warnings []string `json:"warnings,omitempty"`
+	Reduced  *Reduced `json:"reduced,omitempty"`
 	Parameters Settings `json:"parameters"`
 	Threads    int      `json:"threads"`
 	Cores      int      `json:"cores"`
@@ -76,6 +88,23 @@ type Reduced struct {
 	From     int       `json:"from_features"`
 	To       int       `json:"to_components"`
 	Variance []float64 `json:"component_variances"`
+	// ExplainedVariance is the share of the features' total variance that
+	// the components keep.
+	ExplainedVariance float64 `json:"explained_variance"`
+	// Automatic is set when the table's width chose the reduction
+	// (Settings.Reduce = ReduceAuto).
+	Automatic bool `json:"automatic"`
+	// Method is "exact covariance" or the randomised iteration and its
+	// passes over the rows; AngleBound, for the latter, the largest bound on
+	// the angle (radians) between a well separated component and the exact
+	// one.
+	Method     string  `json:"method"`
+	AngleBound float64 `json:"angle_bound,omitempty"`
+	// Normalised is set when the rows were scaled to unit length first (the
+	// cosine metric): the components are then compared by the Euclidean
+	// distance.
+	Normalised bool    `json:"normalised_rows"`
+	Seconds    float64 `json:"seconds"`
 }
 
 func newReport(s Settings, rt Runtime) Report {

@@ -2,6 +2,7 @@ package nightjar
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -11,6 +12,7 @@ import (
 	"nightjar/gradient"
 	"nightjar/ingest"
 	"nightjar/internal/score"
+	"nightjar/knn"
 )
 
 // Quality is the "quality" object of report.json: scores of the map
@@ -30,6 +32,51 @@ type Quality struct {
 	KL           float64  `json:"kl"`
 	KLMethod     string   `json:"kl_method"`
 	Seconds      float64  `json:"seconds"`
+	// Space names the space the scores measure the input in: the features
+	// under the run's metric, or the principal components of a reduced run.
+	Space string `json:"space"`
+	// Original scores a reduced run's map against the original features,
+	// among the sampled rows.
+	Original *SampleScores `json:"original_features,omitempty"`
+}
+
+// scoreSpace is how the scores see the table a run mapped.
+type scoreSpace struct {
+	cosine bool
+	name   string
+}
+
+// tableSpace returns the space of the table mapped under the metric: the
+// principal components (Euclidean) when red is not nil, else the features.
+func tableSpace(metric string, red *Reduced) scoreSpace {
+	if red != nil {
+		return scoreSpace{name: reducedSpace(red)}
+	}
+	if m, _ := knn.ParseMetric(metric); m == knn.Cosine {
+		return scoreSpace{cosine: true, name: "input features, cosine distance"}
+	}
+	return scoreSpace{name: "input features, Euclidean distance"}
+}
+
+// scoreRun scores the finished map y of the job's table: in the table's
+// space, and for a reduced run also against the original features on the
+// sample (one more pass over the input).
+func (j *job) scoreRun(y []float64, labels []string) Quality {
+	t := j.table
+	q := scoreMap(t.Matrix, y, j.s.Dims, labels, scoreK, j.rt.ScoreSample, j.s.Seed, j.rt.Threads, tableSpace(j.s.Metric, j.rep.Reduced))
+	if j.rep.Reduced != nil {
+		t0 := time.Now()
+		rows := score.Sample(t.N, j.rt.ScoreSample, j.s.Seed+2)
+		o, err := sampleScores(j.s, j.rt.Threads, t, j.rep.Reduced, rows, y, q.K)
+		if err != nil {
+			j.warn("no scores against the original features: " + err.Error())
+		} else {
+			q.Original = o
+			j.obs.Note(fmt.Sprintf("trustworthiness@%d among the %d sampled rows: %.4f against the original features, %.4f against the components", o.K, o.Rows, o.Trustworthiness, o.TrustworthinessIn))
+		}
+		q.Seconds += time.Since(t0).Seconds()
+	}
+	return q
 }
 
 // scoreK is the neighbourhood size of the scores (trustworthiness@10 is the
@@ -38,20 +85,27 @@ const scoreK = 10
 
 // scoreMap computes the quality scores of map y (N×dims) of x on a seeded sample.
 // k is capped below N/2, where trustworthiness is defined (Venna & Kaski 2001).
-func scoreMap(x Matrix, y []float64, dims int, labels []string, k, sample int, seed uint64, threads int) Quality {
+// The input is seen in the space sp: its features under the run's metric
+// (score.CosineSpace for cosine), or a reduced run's components.
+func scoreMap(x Matrix, y []float64, dims int, labels []string, k, sample int, seed uint64, threads int, sp scoreSpace) Quality {
 	t0 := time.Now()
 	if k > x.N/2-1 {
 		k = max(1, x.N/2-1)
 	}
 	rows := score.Sample(x.N, sample, seed+2)
-	q := Quality{K: k, Sample: len(rows)}
-	nb := score.Neighbourhood(score.InputSpace(x), score.MapSpace(y, dims), k, rows, threads)
+	q := Quality{K: k, Sample: len(rows), Space: sp.name}
+	in := score.InputSpace(x)
+	centroids := score.CentroidRank
+	if sp.cosine {
+		in, centroids = score.CosineSpace(x), score.CentroidRankUnit
+	}
+	nb := score.Neighbourhood(in, score.MapSpace(y, dims), k, rows, threads)
 	q.Trustworthiness, q.Continuity, q.Preservation = nb.Trustworthiness, nb.Continuity, nb.Preservation
 	if labels != nil {
 		mapAcc := score.LabelAccuracy(score.MapSpace(y, dims), labels, 10, rows, threads)
-		inAcc := score.LabelAccuracy(score.InputSpace(x), labels, 10, rows, threads)
+		inAcc := score.LabelAccuracy(in, labels, 10, rows, threads)
 		q.LabelAccuracyMap, q.LabelAccuracyInput, q.LabelK = &mapAcc, &inAcc, 10
-		if c := score.CentroidRank(x, y, dims, labels); !math.IsNaN(c) {
+		if c := centroids(x, y, dims, labels); !math.IsNaN(c) {
 			q.CentroidRank = &c
 		}
 	}
@@ -105,12 +159,16 @@ func Score(ctx context.Context, dir string, opt ScoreOptions) (*Quality, error) 
 	if err != nil {
 		return nil, err
 	}
-	x, _, err := readTable(s, opt.Threads, nil)
+	x, pca, err := readTable(s, opt.Threads, nil)
 	if err != nil {
 		return nil, err
 	}
-	if same, why := m.Input.Same(fingerprint(s.Input, x.Hash)); !same {
-		return nil, &RunDirError{Dir: run.Dir, Msg: "input " + s.Input + " changed since the run (" + why + ")"}
+	if same, why := m.Input.Same(settingsFingerprint(s, x.Hash)); !same {
+		return nil, &RunDirError{Dir: run.Dir, Msg: "input " + s.inputName() + " changed since the run (" + why + ")"}
+	}
+	var red *Reduced
+	if pca != nil {
+		red = newReduced(pca, s.Reduce == ReduceAuto, 0)
 	}
 	y, err := readMap(run.Path(FileEmbedding), s.Dims, x.N)
 	if err != nil {
@@ -119,8 +177,14 @@ func Score(ctx context.Context, dir string, opt ScoreOptions) (*Quality, error) 
 	if err := ctx.Err(); err != nil {
 		return nil, err
 	}
-	q := scoreMap(x.Matrix, y, s.Dims, labelStrings(x.Label), opt.K, opt.Sample, s.Seed, opt.Threads)
+	q := scoreMap(x.Matrix, y, s.Dims, labelStrings(x.Label), opt.K, opt.Sample, s.Seed, opt.Threads, tableSpace(s.Metric, red))
 	t0 := time.Now()
+	if red != nil {
+		rows := score.Sample(x.N, opt.Sample, s.Seed+2)
+		if o, err := sampleScores(s, opt.Threads, x, red, rows, y, q.K); err == nil {
+			q.Original = o
+		}
+	}
 	q.KL, q.KLMethod = m.KL, "optimiser, last iteration"
 	if x.N <= exactKLRows {
 		if secs, err := run.LoadArtifact(fileP, "affinity"); err == nil {
@@ -158,12 +222,18 @@ func readMap(path string, dims, n int) ([]float64, error) {
 	return y, nil
 }
 
-// fingerprint is the fingerprint of the file at path with the values' hash;
-// just the path when the file cannot be read.
+// fingerprint is the fingerprint of the input at path (a file, directory or
+// glob) with the values' hash; just the path when it cannot be read.
 func fingerprint(path, hash string) checkpoint.Fingerprint {
-	fp, err := checkpoint.FingerprintFile(path)
+	return settingsFingerprint(Settings{Input: path}, hash)
+}
+
+// settingsFingerprint is the fingerprint of the settings' input (every part)
+// with the values' hash; the name and the hash when it cannot be read.
+func settingsFingerprint(s Settings, hash string) checkpoint.Fingerprint {
+	fp, err := inputFingerprint(s)
 	if err != nil {
-		return checkpoint.Fingerprint{Path: path}
+		return checkpoint.Fingerprint{Path: s.inputName(), ValuesHash: hash}
 	}
 	fp.ValuesHash = hash
 	return fp

@@ -21,12 +21,15 @@ import (
 // lists them and Set and Get read and write a field by that name, so the
 // command line cannot drift from this type.
 type Settings struct {
-	Input       string   `json:"input" flag:"input" help:"feature table: Parquet, Arrow IPC or CSV with a header row" topic:"input"`
+	Input       string   `json:"input" flag:"input" help:"feature table: a Parquet, Arrow IPC or CSV file (CSV with a header row; also .csv.gz, .tsv.gz, .csv.zst), a directory of such parts, or a glob pattern; several: repeat --input" topic:"input"`
+	// Inputs lists every input, in reading order, when there are several
+	// (Input is then the first); nil for one.
+	Inputs []string `json:"inputs,omitempty" flag:"-"`
 	ID          string   `json:"id,omitempty" flag:"id" help:"column carried through to the outputs to join on" topic:"input"`
 	Label       string   `json:"label,omitempty" flag:"label" help:"column that colours the map and is scored for label accuracy" topic:"input"`
 	Features    []string `json:"features,omitempty" flag:"features" help:"feature columns: names and glob patterns, comma-separated (default: every numeric column but the id and the label)" topic:"input"`
 	SkipInvalid bool     `json:"skip_invalid" flag:"skip-invalid" help:"drop rows with NaN, Inf or empty features instead of stopping, and report how many" topic:"input"`
-	Reduce      int      `json:"reduce,omitempty" flag:"reduce" help:"project the features onto their first N principal components while reading, in two streamed passes (for wide tables; 0 = off)" topic:"input"`
+	Reduce      int      `json:"reduce" flag:"reduce" help:"project the features onto their first N principal components while reading, in streamed passes (randomised above 500 features); -1 = automatic: 50 components for a table of more than 100 features, none for a narrower one; 0 = keep every feature" topic:"input"`
 
 	Dims        int     `json:"dims" flag:"dims" help:"dimensions of the map: 2 or 3" topic:"map"`
 	Perplexity  float64 `json:"perplexity" flag:"perplexity" help:"effective number of neighbours each row keeps (needs at least 3·perplexity+1 rows)" topic:"neighbours"`
@@ -57,8 +60,9 @@ type Settings struct {
 // iterations after it, θ = 0.5 and the Cauchy kernel (degrees of freedom
 // 1), the published practice of van der Maaten & Hinton (JMLR 9, 2008) and
 // van der Maaten (JMLR 15, 2014); a start from the principal components
-// (Kobak & Berens, Nat. Commun. 10:5416, 2019). Input is empty: the caller
-// names the table.
+// (Kobak & Berens, Nat. Commun. 10:5416, 2019); wide tables reduced to their
+// first 50 principal components (ReduceAuto, the common practice of both).
+// Input is empty: the caller names the table.
 func DefaultSettings() Settings {
 	return Settings{
 		Dims: 2, Perplexity: 30, Neighbours: "auto", Metric: "euclidean", CheckRecall: 1000,
@@ -66,7 +70,7 @@ func DefaultSettings() Settings {
 		Iterations: 1000, EarlyIterations: 250, Exaggeration: 12, LateExaggeration: 1,
 		Start: "pca", StartRows: 25000,
 		MomentumEarly: 0.5, MomentumLate: 0.8, Dof: 1, Theta: 0.5,
-		Repulsion: "auto", Seed: 1,
+		Repulsion: "auto", Seed: 1, Reduce: ReduceAuto,
 	}
 }
 
@@ -93,8 +97,8 @@ func (s *Settings) Validate() error {
 	if _, err := gradient.ParseMethod(s.Repulsion); err != nil {
 		return bad("repulsion", "%v", err)
 	}
-	if s.Reduce < 0 || (s.Reduce > 0 && s.Reduce < s.Dims) {
-		return bad("reduce", "must be 0 (off) or at least --dims (%d), got %d", s.Dims, s.Reduce)
+	if s.Reduce < ReduceAuto || (s.Reduce > 0 && s.Reduce < s.Dims) {
+		return bad("reduce", "must be -1 (automatic), 0 (off) or at least --dims (%d), got %d", s.Dims, s.Reduce)
 	}
 	if !(s.RecallGoal > 0 && s.RecallGoal <= 1) {
 		return bad("recall-goal", "must be in (0, 1], got %g", s.RecallGoal)

@@ -2,10 +2,12 @@ package nightjar
 
 import (
 	"fmt"
+	"io"
 	"os"
 	"path/filepath"
 
 	"nightjar/bench"
+	"nightjar/checkpoint"
 	"nightjar/ingest"
 )
 
@@ -13,15 +15,22 @@ import (
 // (FromMatrix, DemoSource) that Embed first saves into the run directory as
 // a Parquet file, so that Resume and Score find it there.
 type Source struct {
-	path  string        // a table file, or "" for an in-memory table
+	path  string        // a table file, directory or glob, or "" for an in-memory table
+	more  []string      // further inputs read after path (FromFiles)
 	table *ingest.Table // an in-memory table, saved under name
 	name  string
 	make  func() (*ingest.Table, error) // builds the table once the run directory exists
+	// write writes a generated table file under name, whose id and label
+	// columns are id and label (DocumentSource).
+	write     func(io.Writer) error
+	id, label string
 }
 
 // FromFile returns the source of a Parquet, Arrow IPC or CSV table file
-// (CSV with a header row). The path is made absolute, so the run can be
-// resumed from another working directory.
+// (CSV with a header row, plain or gzip- or zstd-compressed), of a directory
+// of such files (read as parts of one table, in byte order of their paths),
+// or of a glob pattern naming them (see ingest.OpenDataset). The path is made
+// absolute, so the run can be resumed from another working directory.
 func FromFile(path string) Source { return Source{path: path} }
 
 // FromMatrix returns an in-memory source of the N×D matrix x, with optional
@@ -52,10 +61,24 @@ func (src Source) check() error {
 	if src.path == "" {
 		return nil
 	}
-	if _, err := os.Stat(src.path); err != nil {
-		return &ingest.InputError{File: src.path, Reason: errorText(err), Err: err}
+	return checkInput(append([]string{src.path}, src.more...)...)
+}
+
+// inputs returns the absolute paths of every input of a source of several
+// (FromFiles), nil for one.
+func (src Source) inputs() []string {
+	if len(src.more) == 0 {
+		return nil
 	}
-	return nil
+	out := make([]string, 0, 1+len(src.more))
+	for _, p := range append([]string{src.path}, src.more...) {
+		abs, err := filepath.Abs(p)
+		if err != nil {
+			abs = p
+		}
+		out = append(out, abs)
+	}
+	return out
 }
 
 // resolve returns the path of the table to read, saving an in-memory table
@@ -66,10 +89,21 @@ func (src Source) resolve(dir string, obs Observer) (path, id, label string, err
 		if err != nil {
 			return "", "", "", fmt.Errorf("resolving %s: %w", src.path, err)
 		}
-		if _, err := os.Stat(abs); err != nil {
-			return "", "", "", &ingest.InputError{File: src.path, Reason: errorText(err), Err: err}
+		if err := checkInput(abs); err != nil {
+			return "", "", "", err
 		}
 		return abs, "", "", nil
+	}
+	if src.write != nil {
+		path = filepath.Join(dir, src.name)
+		if err := checkpoint.AtomicWrite(path, src.write); err != nil {
+			return "", "", "", fmt.Errorf("writing %s: %w", path, err)
+		}
+		obs.Note(fmt.Sprintf("demo: wrote %s", path))
+		if path, err = filepath.Abs(path); err != nil {
+			return "", "", "", err
+		}
+		return path, src.id, src.label, nil
 	}
 	t := src.table
 	if t == nil {

@@ -104,12 +104,12 @@ func (m *docModel) row(i int64, seed uint64, out []float32) int {
 		topic++
 	}
 	second := rng.IntN(DocumentTopics)
-	lean := 0.35 * rng.Float64()
+	lean := 0.5 * rng.Float64()
 	if second == topic {
 		lean = 0
 	}
 	length := math.Exp(0.5 * rng.NormFloat64())
-	noise := 0.9 / math.Sqrt(float64(m.width))
+	noise := 1.3 / math.Sqrt(float64(m.width))
 	a := m.centres[topic*m.width : (topic+1)*m.width]
 	b := m.centres[second*m.width : (second+1)*m.width]
 	for j := range out {

@@ -53,6 +53,10 @@ type Table struct {
 	// Columns describes the input columns the features come from, in matrix
 	// column order (nil for a table made in memory).
 	Columns []FeatureColumn
+	// SourceFeatures, for a table reduced to principal components, holds the
+	// names of the D input features the components project (Features is
+	// then "pc_1" … "pc_k"); nil otherwise.
+	SourceFeatures []string
 	// ID and Label are the pass-through columns, each of length N, or nil when not
 	// requested. An integer id column gives Ints, a text id column gives Strings;
 	// likewise for labels. A null label is marked in Label.Null.

@@ -238,17 +238,18 @@ func (r *reduction) project(first *Table, p *PCA) (*Table, error) {
 		return nil, err
 	}
 	t := &Table{
-		Matrix:      core.Matrix{N: first.N, D: k, Data: scores},
-		Features:    make([]string, k),
-		Columns:     first.Columns,
-		ID:          first.ID,
-		Label:       first.Label,
-		Skipped:     first.Skipped,
-		SkippedRows: first.SkippedRows,
-		FewValues:   first.FewValues,
-		Hash:        first.Hash,
-		Format:      first.Format,
-		Parts:       first.Parts,
+		Matrix:         core.Matrix{N: first.N, D: k, Data: scores},
+		Features:       make([]string, k),
+		Columns:        first.Columns,
+		SourceFeatures: first.Features,
+		ID:             first.ID,
+		Label:          first.Label,
+		Skipped:        first.Skipped,
+		SkippedRows:    first.SkippedRows,
+		FewValues:      first.FewValues,
+		Hash:           first.Hash,
+		Format:         first.Format,
+		Parts:          first.Parts,
 	}
 	for c := range t.Features {
 		t.Features[c] = fmt.Sprintf("pc_%d", c+1)
