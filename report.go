@@ -21,13 +21,13 @@ const Version = "0.1.0"
 
 // Report is report.json: what was run, how long it took, how good the map is.
 type Report struct {
-	Tool       string   `json:"tool"`
-	Version    string   `json:"version"`
-	Input      string   `json:"input"`
-	Format     string   `json:"format"`
-	Rows       int      `json:"rows"`
-	Features   int      `json:"features"`
-	Skipped    int64    `json:"skipped_rows"`
+	Tool     string `json:"tool"`
+	Version  string `json:"version"`
+	Input    string `json:"input"`
+	Format   string `json:"format"`
+	Rows     int    `json:"rows"`
+	Features int    `json:"features"`
+	Skipped  int64  `json:"skipped_rows"`
 	// SkippedRowsFile names the file of the run directory that lists the
 	// skipped rows (FileSkippedRows), when there are any.
 	SkippedRowsFile string `json:"skipped_rows_file,omitempty"`
@@ -39,8 +39,8 @@ type Report struct {
 	// DuplicateIDs counts the ids that occur more than once.
 	DuplicateIDs *DuplicateIDs `json:"duplicate_ids,omitempty"`
 	// Warnings repeats the warnings printed about the input.
-	Warnings []string `json:"warnings,omitempty"`
-	Reduced  *Reduced `json:"reduced,omitempty"`
+	Warnings   []string `json:"warnings,omitempty"`
+	Reduced    *Reduced `json:"reduced,omitempty"`
 	Parameters Settings `json:"parameters"`
 	Threads    int      `json:"threads"`
 	Cores      int      `json:"cores"`

@@ -22,9 +22,7 @@ import (
 // command line cannot drift from this type.
 type Settings struct {
 	Input       string   `json:"input" flag:"input" help:"feature table: a Parquet, Arrow IPC or CSV file (CSV with a header row; also .csv.gz, .tsv.gz, .csv.zst), a directory of such parts, or a glob pattern; several: repeat --input" topic:"input"`
-	// Inputs lists every input, in reading order, when there are several
-	// (Input is then the first); nil for one.
-	Inputs []string `json:"inputs,omitempty" flag:"-"`
+	Inputs      []string `json:"inputs,omitempty" flag:"-"` // every input in reading order when there are several (Input is the first); nil for one
 	ID          string   `json:"id,omitempty" flag:"id" help:"column carried through to the outputs to join on" topic:"input"`
 	Label       string   `json:"label,omitempty" flag:"label" help:"column that colours the map and is scored for label accuracy" topic:"input"`
 	Features    []string `json:"features,omitempty" flag:"features" help:"feature columns: names and glob patterns, comma-separated (default: every numeric column but the id and the label)" topic:"input"`
