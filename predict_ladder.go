@@ -22,6 +22,10 @@ type LadderRun struct {
 	Report  *Report // its report.json; nil when the run failed
 	Seconds float64 // wall time of its process
 	Peak    int64   // peak resident memory of its process, bytes (≤ 0: the report's)
+	// Busy is the share of the machine's cores (0 to 1) that other
+	// processes kept busy while it ran; its times count as that much less
+	// certain.
+	Busy float64
 }
 
 // PredictSetting predicts the wall time and peak memory of a run of s on
@@ -48,7 +52,9 @@ func PredictSetting(name string, s Settings, rows, threads int, runs []LadderRun
 		if r.Report == nil {
 			continue
 		}
-		samples = append(samples, RunSampleOf(r.Report, r.Seconds, r.Peak))
+		sm := RunSampleOf(r.Report, r.Seconds, r.Peak)
+		sm.Busy = math.Min(1, math.Max(0, r.Busy))
+		samples = append(samples, sm)
 		passes = append(passes, passRunOf(r.Report))
 	}
 	if rs.Neighbours != knn.ByExact.String() {

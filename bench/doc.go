@@ -50,7 +50,9 @@
 // FitLaw finds a and b by weighted least squares, each sample weighted by
 // 1/σ² with σ = Abs + Rel·t (Noise: about 10 % between repeated runs on a
 // shared machine, common practice; Rel rises to the spread of repeats at the
-// same size when there are any), constrained to a, b ≥ 0 (the constrained
+// same size when there are any, and each time sample adds the share of the
+// machine's cores other processes kept busy during its run, Sample.Rel, our
+// rough model of interference), constrained to a, b ≥ 0 (the constrained
 // optimum of two unknowns lies on a bound when the free one does not, so
 // trying each bound suffices). χ²/dof of the residuals says whether the
 // samples follow the law; Fit.Exponent, the least-squares slope of ln t

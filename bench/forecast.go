@@ -27,6 +27,10 @@ type RunSample struct {
 	Seconds float64            // wall time
 	Phases  map[string]float64 // seconds by phase name; a missing phase took 0
 	Memory  float64            // peak resident memory, bytes
+	// Busy is the share of the machine's cores that other processes kept
+	// busy during the run (0 to 1): its times are that much less certain
+	// (Sample.Rel), its memory not.
+	Busy float64
 	// Repeats holds, for a phase whose value is the time of one
 	// repetition (PhaseLaw.Times), how many the run made; missing means 1.
 	Repeats map[string]float64
@@ -59,9 +63,9 @@ type Forecast struct {
 // ForecastRun predicts the wall time and peak memory of a run at n rows
 // from runs of the same settings on fewer rows.
 //
-// Each phase's seconds are fitted with its law (Predict, TimeNoise), the
-// rest of the wall time as OtherPhase, and the peak memory with a + b·N
-// (MemoryNoise). The predicted wall time is the sum of the phases'. Its
+// Each phase's seconds are fitted with its law (Predict, TimeNoise, each
+// run's times also as uncertain as its Busy share), the rest of the wall
+// time as OtherPhase, and the peak memory with a + b·N (MemoryNoise). The predicted wall time is the sum of the phases'. Its
 // range combines the phases' errors as the package doc says: the
 // uncertainties of the fitted laws are independent and add in quadrature,
 // while the noise of one run (the machine's load) is shared by all phases
@@ -84,7 +88,7 @@ func ForecastRun(laws []PhaseLaw, runs []RunSample, n int, lim Limits) Forecast 
 				}
 				v = math.Max(v, 0)
 			}
-			ss = append(ss, Sample{N: float64(r.N), Value: v})
+			ss = append(ss, Sample{N: float64(r.N), Value: v, Rel: r.Busy})
 			used = used || v != 0
 		}
 		if !used {

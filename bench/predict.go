@@ -60,6 +60,10 @@ func (l Law) maxExponent() float64 {
 type Sample struct {
 	N     float64
 	Value float64
+	// Rel is extra relative noise of this sample beyond the Noise of the
+	// fit: for a time measured while other processes used a share of the
+	// machine's cores, that share (0 for none).
+	Rel float64
 }
 
 // Noise is the measurement noise assumed for one sample: a standard
@@ -81,6 +85,9 @@ var (
 )
 
 func (ns Noise) sd(v float64) float64 { return ns.Abs + ns.Rel*math.Abs(v) }
+
+// sdOf is the noise of one sample: the fit's plus the sample's own.
+func (ns Noise) sdOf(s Sample) float64 { return ns.Abs + (ns.Rel+s.Rel)*math.Abs(s.Value) }
 
 // Fit is a growth law fitted to samples by weighted least squares with
 // a, b ≥ 0 (see the package doc).
@@ -132,7 +139,7 @@ func FitLaw(l Law, samples []Sample, ns Noise) (Fit, error) {
 	f := Fit{Law: l, Chi2: math.NaN(), Exponent: math.NaN(), noise: ns}
 	sizes := map[float64]bool{}
 	for _, s := range samples {
-		if !(s.N >= 2) || math.IsNaN(s.Value) || math.IsInf(s.Value, 0) || math.IsInf(s.N, 0) {
+		if !(s.N >= 2) || math.IsNaN(s.Value) || math.IsInf(s.Value, 0) || math.IsInf(s.N, 0) || !(s.Rel >= 0) {
 			return f, fmt.Errorf("sample (%g rows, %g) is not a measurement", s.N, s.Value)
 		}
 		sizes[s.N] = true
@@ -149,7 +156,7 @@ func FitLaw(l Law, samples []Sample, ns Noise) (Fit, error) {
 	gs := l.g(f.MaxN)
 	var s00, s01, s11, r0, r1 float64
 	for _, s := range samples {
-		w := 1 / sq(ns.sd(s.Value))
+		w := 1 / sq(ns.sdOf(s))
 		x := l.g(s.N) / gs
 		s00 += w
 		s01 += w * x
@@ -172,7 +179,7 @@ func FitLaw(l Law, samples []Sample, ns Noise) (Fit, error) {
 	f.A, f.B = a, b/gs
 	var chi float64
 	for _, s := range samples {
-		chi += sq((s.Value - f.At(s.N)) / ns.sd(s.Value))
+		chi += sq((s.Value - f.At(s.N)) / ns.sdOf(s))
 	}
 	if dof := len(samples) - 2; dof > 0 {
 		f.Chi2 = chi / float64(dof)

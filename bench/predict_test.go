@@ -89,7 +89,7 @@ func TestFitPowerRecoversExponent(t *testing.T) {
 			t.Errorf("Fit.Exponent %.4f, FitPower %.4f", f.Exponent, got)
 		}
 	}
-	if _, _, err := FitPower([]Sample{{1e4, 1}, {1e5, 0}}); err == nil {
+	if _, _, err := FitPower([]Sample{{1e4, 1, 0}, {1e5, 0, 0}}); err == nil {
 		t.Error("a zero value should be refused by the power law")
 	}
 }
@@ -101,7 +101,7 @@ func TestPredictRefuses(t *testing.T) {
 		ns := []float64{1e4, 3e4, 1e5, 3e5}
 		var ss []Sample
 		for i, v := range vs {
-			ss = append(ss, Sample{ns[i], v})
+			ss = append(ss, Sample{N: ns[i], Value: v})
 		}
 		return ss
 	}
@@ -142,24 +142,24 @@ func TestPredictRefuses(t *testing.T) {
 // b = 0 (a mean), and one whose free intercept would be negative keeps
 // a = 0.
 func TestFitLawNonNegative(t *testing.T) {
-	f, err := FitLaw(Linear, []Sample{{1e4, 12}, {1e5, 10}}, TimeNoise)
+	f, err := FitLaw(Linear, []Sample{{1e4, 12, 0}, {1e5, 10, 0}}, TimeNoise)
 	if err != nil {
 		t.Fatal(err)
 	}
 	if f.B != 0 || f.A < 10 || f.A > 12 {
 		t.Errorf("falling values: a = %g, b = %g", f.A, f.B)
 	}
-	f, err = FitLaw(Linear, []Sample{{1e4, 1}, {1e5, 30}}, TimeNoise)
+	f, err = FitLaw(Linear, []Sample{{1e4, 1, 0}, {1e5, 30, 0}}, TimeNoise)
 	if err != nil {
 		t.Fatal(err)
 	}
 	if f.A != 0 || f.B <= 0 {
 		t.Errorf("steep values: a = %g, b = %g", f.A, f.B)
 	}
-	if _, err := FitLaw(Linear, []Sample{{1e4, 1}, {1e4, 2}}, TimeNoise); err == nil {
+	if _, err := FitLaw(Linear, []Sample{{1e4, 1, 0}, {1e4, 2, 0}}, TimeNoise); err == nil {
 		t.Error("one size should be refused")
 	}
-	if _, err := FitLaw(Linear, []Sample{{1e4, math.NaN()}, {1e5, 2}}, TimeNoise); err == nil {
+	if _, err := FitLaw(Linear, []Sample{{1e4, math.NaN(), 0}, {1e5, 2, 0}}, TimeNoise); err == nil {
 		t.Error("a NaN value should be refused")
 	}
 }
@@ -167,7 +167,7 @@ func TestFitLawNonNegative(t *testing.T) {
 // TestPoolNoise: repeats that scatter by 30 % widen the noise to about
 // that (the pooled relative standard deviation).
 func TestPoolNoise(t *testing.T) {
-	ss := []Sample{{1e4, 7}, {1e4, 13}, {1e5, 70}, {1e5, 130}}
+	ss := []Sample{{1e4, 7, 0}, {1e4, 13, 0}, {1e5, 70, 0}, {1e5, 130, 0}}
 	got := poolNoise(ss, TimeNoise).Rel
 	// each size: mean m, deviations ±0.3m; pooled sqrt((4·0.09)/2) = 0.424
 	if math.Abs(got-math.Sqrt(0.18)) > 1e-9 {

@@ -174,7 +174,11 @@ func (o *benchOptions) rung(ctx context.Context, combos []combo, sub nightjar.Da
 		if res.Err != "" {
 			o.u.Warn(fmt.Sprintf("bench %s on %d rows failed: %s", c.name, sub.Rows, res.Err))
 		}
-		ladder[sl.Setting] = append(ladder[sl.Setting], nightjar.LadderRun{Report: rep, Seconds: res.Seconds, Peak: res.PeakMem})
+		lr := nightjar.LadderRun{Report: rep, Seconds: res.Seconds, Peak: res.PeakMem}
+		if !math.IsNaN(res.OtherCPU) {
+			lr.Busy = res.OtherCPU / float64(runtime.NumCPU())
+		}
+		ladder[sl.Setting] = append(ladder[sl.Setting], lr)
 		out = append(out, res)
 		o.u.Progress(int64(k+1), int64(len(slots)))
 	}
