@@ -308,7 +308,7 @@ func csvColumns(header []string, sample [][]string) ([]colInfo, []csvInfo) {
 	cols := make([]colInfo, len(header))
 	for c, name := range header {
 		in := infos[c]
-		cols[c] = colInfo{name: name, numeric: in.numeric(), typ: "number"}
+		cols[c] = colInfo{name: name, numeric: in.numeric(), typ: "number", integer: in.numeric() && in.integer && in.nonEmpty > 0}
 		switch {
 		case in.nonEmpty == 0:
 			cols[c].typ = "empty in the first rows"

@@ -83,14 +83,14 @@ func TestParquetRoundTrip(t *testing.T) {
 	}
 }
 
-// TestStringIDRoundTrip: text ids stay text, integer labels become text
-// (hand-worked).
+// TestStringIDRoundTrip: text ids stay text, integer labels stay integers, a
+// null label stays null (hand-worked).
 func TestStringIDRoundTrip(t *testing.T) {
 	tab := &Table{
 		Matrix:   core.Matrix{N: 3, D: 2, Data: []float32{1, 2, 3, 4, 5, 6}},
 		Features: []string{"a", "b"},
 		ID:       &Column{Name: "key", Strings: []string{"x-1", "x-2", "x-1"}},
-		Label:    &Column{Name: "grp", Ints: []int64{7, -3, 7}},
+		Label:    &Column{Name: "grp", Ints: []int64{7, -3, 0}, Null: []bool{false, false, true}},
 	}
 	got, err := Read(writeTableFile(t, tab), Options{ID: "key", Label: "grp"})
 	if err != nil {
@@ -99,12 +99,12 @@ func TestStringIDRoundTrip(t *testing.T) {
 	if got.ID.Ints != nil || !slices.Equal(got.ID.Strings, tab.ID.Strings) {
 		t.Errorf("ids = %v %v", got.ID.Ints, got.ID.Strings)
 	}
-	if !slices.Equal(got.Label.Strings, []string{"7", "-3", "7"}) {
-		t.Errorf("labels = %v", got.Label.Strings)
+	if !slices.Equal(got.Label.Ints, []int64{7, -3, 0}) || !slices.Equal(got.Label.Null, []bool{false, false, true}) {
+		t.Errorf("labels = %+v", got.Label)
 	}
 	// Duplicate rows are valid data.
 	tab.Data = []float32{1, 2, 1, 2, 1, 2}
-	got, err = Read(writeTableFile(t, tab), Options{})
+	got, err = Read(writeTableFile(t, tab), Options{ID: "key", Label: "grp"})
 	if err != nil || got.N != 3 {
 		t.Fatalf("duplicate rows: %v, N = %v", err, got)
 	}

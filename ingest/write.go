@@ -36,29 +36,50 @@ func (e *errWriter) Write(p []byte) (int, error) {
 }
 
 // passField returns the Arrow field for a pass-through column: int64 for Ints,
-// string otherwise. def names the field when c.Name is "".
-func passField(c *Column, def string, forceText bool) arrow.Field {
+// string otherwise, nullable when it has nulls. def names the field when
+// c.Name is "".
+func passField(c *Column, def string) arrow.Field {
 	name := c.Name
 	if name == "" {
 		name = def
 	}
-	if c.Ints != nil && !forceText {
-		return arrow.Field{Name: name, Type: arrow.PrimitiveTypes.Int64}
+	if c.Ints != nil {
+		return arrow.Field{Name: name, Type: arrow.PrimitiveTypes.Int64, Nullable: c.Null != nil}
 	}
-	return arrow.Field{Name: name, Type: arrow.BinaryTypes.String}
+	return arrow.Field{Name: name, Type: arrow.BinaryTypes.String, Nullable: c.Null != nil}
 }
 
-// appendPass appends rows [lo, hi) of c to bld.
+// labelDict names the label's field for dictionary encoding: text labels
+// repeat; "" for none or an integer label.
+func labelDict(label *Column, f arrow.Field) string {
+	if label == nil || label.Ints != nil {
+		return ""
+	}
+	return f.Name
+}
+
+// appendPass appends rows [lo, hi) of c to bld, nulls as nulls.
 func appendPass(bld array.Builder, c *Column, lo, hi int) {
+	var valid []bool
+	if c.Null != nil {
+		valid = make([]bool, hi-lo)
+		for i := range valid {
+			valid[i] = !c.Null[lo+i]
+		}
+	}
 	switch b := bld.(type) {
 	case *array.Int64Builder:
-		b.AppendValues(c.Ints[lo:hi], nil)
+		b.AppendValues(c.Ints[lo:hi], valid)
 	case *array.StringBuilder:
 		if c.Strings != nil {
-			b.AppendValues(c.Strings[lo:hi], nil)
+			b.AppendValues(c.Strings[lo:hi], valid)
 			return
 		}
 		for i := lo; i < hi; i++ {
+			if c.IsNull(i) {
+				b.AppendNull()
+				continue
+			}
 			b.Append(c.String(i))
 		}
 	}
@@ -110,8 +131,8 @@ func writeParquet(w io.Writer, sc *arrow.Schema, dictCol string, n int, fill fun
 }
 
 // WriteEmbedding writes an embedding as Parquet to w: the id column if id is non-nil
-// (int64 for an integer id, string otherwise), the label column (string) if label is
-// non-nil, then float64 columns "map_1" … "map_<dims>". y is N×dims row-major, rows in
+// (int64 for an integer id, string otherwise), the label column if label is
+// non-nil (int64 or string likewise, nulls kept), then float64 columns "map_1" … "map_<dims>". y is N×dims row-major, rows in
 // input order; id and label, when non-nil, must have N values. A column without a name
 // is called "id" or "label". Rows go out in row groups of WriteChunkRows. w is not
 // closed. It returns an error if dims is not 2 or 3, len(y) is not a multiple of dims,
@@ -129,17 +150,17 @@ func WriteEmbedding(w io.Writer, id, label *Column, y []float64, dims int) error
 		if id.Len() != n {
 			return fmt.Errorf("writing embedding: id has %d values for %d rows", id.Len(), n)
 		}
-		fields = append(fields, passField(id, "id", false))
+		fields = append(fields, passField(id, "id"))
 	}
 	if label != nil {
 		if label.Len() != n {
 			return fmt.Errorf("writing embedding: label has %d values for %d rows", label.Len(), n)
 		}
-		fields = append(fields, passField(label, "label", true))
+		fields = append(fields, passField(label, "label"))
 	}
 	dictCol := ""
 	if label != nil {
-		dictCol = fields[len(fields)-1].Name
+		dictCol = labelDict(label, fields[len(fields)-1])
 	}
 	first := len(fields)
 	for k := 1; k <= dims; k++ {
@@ -165,8 +186,8 @@ func WriteEmbedding(w io.Writer, id, label *Column, y []float64, dims int) error
 	})
 }
 
-// WriteTable writes t as Parquet to w: t.ID (int64 or string) and t.Label (string)
-// when non-nil, then the D feature columns as float32 named t.Features. Rows go out in
+// WriteTable writes t as Parquet to w: t.ID and t.Label (int64 or string, nulls
+// kept) when non-nil, then the D feature columns as float32 named t.Features. Rows go out in
 // row groups of WriteChunkRows. w is not closed. It returns an error if t.Features
 // does not have D names, t.Data does not have N×D values, or names clash.
 func WriteTable(w io.Writer, t *Table) error {
@@ -181,17 +202,17 @@ func WriteTable(w io.Writer, t *Table) error {
 		if t.ID.Len() != t.N {
 			return fmt.Errorf("writing table: id has %d values for %d rows", t.ID.Len(), t.N)
 		}
-		fields = append(fields, passField(t.ID, "id", false))
+		fields = append(fields, passField(t.ID, "id"))
 	}
 	if t.Label != nil {
 		if t.Label.Len() != t.N {
 			return fmt.Errorf("writing table: label has %d values for %d rows", t.Label.Len(), t.N)
 		}
-		fields = append(fields, passField(t.Label, "label", true))
+		fields = append(fields, passField(t.Label, "label"))
 	}
 	dictCol := ""
 	if t.Label != nil {
-		dictCol = fields[len(fields)-1].Name
+		dictCol = labelDict(t.Label, fields[len(fields)-1])
 	}
 	first := len(fields)
 	for _, name := range t.Features {
