@@ -36,17 +36,17 @@ type Settings struct {
 	CheckRecall int     `json:"check_recall" flag:"check-recall" help:"rows sampled to measure the recall of approximate neighbours (0 = off)" topic:"neighbours"`
 	RecallGoal  float64 `json:"recall_goal" flag:"recall-goal" help:"approximate neighbours: refine until the recall estimated on 300 sampled rows reaches this, or six passes (1 = until a pass changes almost nothing)" topic:"neighbours"`
 
-	Iterations      int     `json:"iterations" flag:"iterations" help:"optimiser iterations in all, early exaggeration included" topic:"optimiser"`
-	EarlyIterations int     `json:"early_iterations" flag:"early-iterations" help:"iterations with early exaggeration" topic:"optimiser"`
-	Exaggeration    float64 `json:"exaggeration" flag:"exaggeration" help:"early exaggeration factor" topic:"optimiser"`
+	Iterations      int     `json:"iterations" flag:"steps" help:"optimiser steps in all, the early phase included" topic:"optimiser"`
+	EarlyIterations int     `json:"early_iterations" flag:"early-steps" help:"steps of the early phase (early exaggeration and early momentum)" topic:"optimiser"`
+	Exaggeration    float64 `json:"exaggeration" flag:"early-exaggeration" help:"exaggeration factor of the early phase" topic:"optimiser"`
 	// LateExaggeration and the start are absent from manifests written
 	// before they existed; 0 and "" then mean 1 and "pca".
-	LateExaggeration float64 `json:"late_exaggeration" flag:"late-exaggeration" help:"exaggeration after the early phase; above 1 keeps clusters tighter and more of the global layout on very large tables (Kobak & Berens 2019)" topic:"optimiser"`
-	Start            string  `json:"start" flag:"start" help:"starting map: pca (first principal components) or subsample (map --start-rows random rows first, place the others among their neighbours; Kobak & Berens 2019)" topic:"optimiser"`
-	StartRows        int     `json:"start_rows" flag:"start-rows" help:"rows mapped first by --start subsample" topic:"optimiser"`
+	LateExaggeration float64 `json:"late_exaggeration" flag:"main-exaggeration" help:"exaggeration after the early phase; above 1 keeps clusters tighter and more of the global layout on very large tables (Kobak & Berens 2019)" topic:"optimiser"`
+	Start            string  `json:"start" flag:"start-map" help:"starting map: pca (first principal components) or subsample (map --start-sample random rows first, place the others among their neighbours; Kobak & Berens 2019)" topic:"optimiser"`
+	StartRows        int     `json:"start_rows" flag:"start-sample" help:"rows mapped first by --start-map subsample" topic:"optimiser"`
 	LearningRate     float64 `json:"learning_rate" flag:"learning-rate" help:"step size; 0 = automatic (rows / exaggeration, with a floor)" topic:"optimiser"`
-	MomentumEarly    float64 `json:"momentum_early" flag:"momentum-early" help:"momentum during early exaggeration" topic:"optimiser"`
-	MomentumLate     float64 `json:"momentum_late" flag:"momentum" help:"momentum after early exaggeration" topic:"optimiser"`
+	MomentumEarly    float64 `json:"momentum_early" flag:"early-momentum" help:"momentum during the early phase" topic:"optimiser"`
+	MomentumLate     float64 `json:"momentum_late" flag:"momentum" help:"momentum after the early phase" topic:"optimiser"`
 	Dof              float64 `json:"degrees_of_freedom" flag:"degrees-of-freedom" help:"degrees of freedom of the map's heavy-tailed kernel (1 = Cauchy; lower separates clusters more)" topic:"map"`
 	Theta            float64 `json:"theta" flag:"theta" help:"Barnes–Hut accuracy: 0 is exact, larger is faster and rougher" topic:"optimiser"`
 	Repulsion        string  `json:"repulsion" flag:"repulsion" help:"repulsive forces: auto, exact, tree (Barnes–Hut) or grid (FFT-interpolated, 2-D)" topic:"optimiser"`
@@ -107,16 +107,16 @@ func (s *Settings) Validate() error {
 	switch s.Start {
 	case "pca", "subsample":
 	default:
-		return bad("start", "must be pca or subsample, got %q", s.Start)
+		return bad("start-map", "must be pca or subsample, got %q", s.Start)
 	}
 	if s.Start == "subsample" && s.StartRows < 100 {
-		return bad("start-rows", "must be at least 100, got %d", s.StartRows)
+		return bad("start-sample", "must be at least 100, got %d", s.StartRows)
 	}
 	if !(s.LateExaggeration > 0 && s.LateExaggeration <= 1e4) {
-		return bad("late-exaggeration", "must be in (0, 10000], got %g", s.LateExaggeration)
+		return bad("main-exaggeration", "must be in (0, 10000], got %g", s.LateExaggeration)
 	}
 	if s.Iterations < 1 || s.EarlyIterations < 0 || s.EarlyIterations > s.Iterations {
-		return bad("iterations", "(%d) must be at least 1 and at least --early-iterations (%d)", s.Iterations, s.EarlyIterations)
+		return bad("steps", "(%d) must be at least 1 and at least --early-steps (%d)", s.Iterations, s.EarlyIterations)
 	}
 	return nil
 }
@@ -141,7 +141,7 @@ type Runtime struct {
 	// writes its state: every this many iterations, and at least every
 	// this many minutes. The run keeps them for Resume, which uses them
 	// where its own Runtime leaves them at 0.
-	CheckpointEvery   int     `flag:"checkpoint-every" json:"checkpoint_every" help:"write the optimiser state every this many iterations" topic:"running"`
+	CheckpointEvery   int     `flag:"checkpoint-every" json:"checkpoint_every" help:"write the optimiser state every this many steps" topic:"running"`
 	CheckpointMinutes float64 `flag:"checkpoint-minutes" json:"checkpoint_minutes" help:"and at least every this many minutes" topic:"running"`
 	// ScoreSample is the number of rows sampled for the quality scores of
 	// the report (0 = no scores).

@@ -55,7 +55,7 @@ func runBinary(t *testing.T, args ...string) (int, string, string) {
 func TestBenchSweep(t *testing.T) {
 	out := filepath.Join(t.TempDir(), "sweep")
 	cmd := exec.Command(binary, "bench", "--data", "demo", "--rows", "400", "--out", out, "--quiet", "--warmup", "0",
-		"--repulsion", "tree", "--vary", "theta=0.5,1", "--iterations", "60", "--early-iterations", "20", "--score-sample", "100")
+		"--repulsion", "tree", "--vary", "theta=0.5,1", "--steps", "60", "--early-steps", "20", "--score-sample", "100")
 	if b, err := cmd.CombinedOutput(); err != nil {
 		t.Fatalf("bench: %v\n%s", err, b)
 	}
@@ -93,7 +93,7 @@ func TestBenchSweep(t *testing.T) {
 func TestBenchRepeatedInterleaved(t *testing.T) {
 	out := filepath.Join(t.TempDir(), "sweep")
 	code, stdout, stderr := runBinary(t, "bench", "--data", "demo", "--rows", "300", "--out", out, "--quiet", "--repeat", "3",
-		"--vary", "perplexity=10,30", "--iterations", "40", "--early-iterations", "10", "--score-sample", "100", "--threads", "1")
+		"--vary", "perplexity=10,30", "--steps", "40", "--early-steps", "10", "--score-sample", "100", "--threads", "1")
 	if code != 0 {
 		t.Fatalf("exit %d\n%s\n%s", code, stdout, stderr)
 	}
@@ -143,7 +143,7 @@ func TestBenchRepeatedInterleaved(t *testing.T) {
 func TestBenchPredict(t *testing.T) {
 	dir := t.TempDir()
 	out := filepath.Join(dir, "pred")
-	opts := []string{"--iterations", "40", "--early-iterations", "10", "--score-sample", "100"}
+	opts := []string{"--steps", "40", "--early-steps", "10", "--score-sample", "100"}
 	code, stdout, stderr := runBinary(t, append([]string{"bench", "--data", "demo", "--rows", "3000", "--out", out, "--quiet", "--predict", "--ladder", "5,10,20", "--warmup", "0"}, opts...)...)
 	if code != 0 {
 		t.Fatalf("exit %d\n%s\n%s", code, stdout, stderr)
@@ -252,7 +252,7 @@ func TestBenchNoScores(t *testing.T) {
 		t.Fatal(err)
 	}
 	cmd := exec.Command(binary, "bench", "--data", "demo", "--rows", "400", "--out", out, "--quiet", "--warmup", "0",
-		"--vary", "seed=1,2", "--iterations", "30", "--early-iterations", "10", "--score-sample", "0")
+		"--vary", "seed=1,2", "--steps", "30", "--early-steps", "10", "--score-sample", "0")
 	b, err := cmd.CombinedOutput()
 	if err != nil {
 		t.Fatalf("bench: %v\n%s", err, b)

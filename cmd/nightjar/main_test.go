@@ -73,7 +73,7 @@ func TestEmbedWritesOutputs(t *testing.T) {
 	in := writeDemoTable(t, dir, 1200)
 	runDir := filepath.Join(dir, "run")
 	code, out, errs := runCLI("embed", "--input", in, "--run", runDir, "--id", "id", "--label", "population",
-		"--iterations", "300", "--early-iterations", "100", "--quiet", "--score-sample", "300")
+		"--steps", "300", "--early-steps", "100", "--quiet", "--score-sample", "300")
 	if code != 0 {
 		t.Fatalf("exit %d\nstdout: %s\nstderr: %s", code, out, errs)
 	}
@@ -142,7 +142,7 @@ func TestThreadsSameBits(t *testing.T) {
 		for i, threads := range []string{"1", "2"} {
 			runDir := filepath.Join(dir, method+threads)
 			code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--threads", threads, "--neighbours", method,
-				"--iterations", "150", "--early-iterations", "50", "--quiet", "--score-sample", "0")
+				"--steps", "150", "--early-steps", "50", "--quiet", "--score-sample", "0")
 			if code != 0 {
 				t.Fatalf("%s, threads %s: exit %d: %s", method, threads, code, errs)
 			}
@@ -174,7 +174,7 @@ func TestEmbedReduce(t *testing.T) {
 	in := writeDemoTable(t, dir, 900)
 	runDir := filepath.Join(dir, "run")
 	code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--reduce", "8", "--id", "id",
-		"--iterations", "120", "--early-iterations", "40", "--quiet", "--score-sample", "200")
+		"--steps", "120", "--early-steps", "40", "--quiet", "--score-sample", "200")
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
@@ -198,7 +198,7 @@ func TestEmbedHNSW(t *testing.T) {
 	in := writeDemoTable(t, dir, 1500)
 	runDir := filepath.Join(dir, "run")
 	code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--neighbours", "hnsw", "--check-recall", "500",
-		"--iterations", "100", "--early-iterations", "30", "--quiet", "--score-sample", "0")
+		"--steps", "100", "--early-steps", "30", "--quiet", "--score-sample", "0")
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
@@ -224,7 +224,7 @@ func TestEmbedRecallGoal(t *testing.T) {
 	for _, goal := range []string{"0.9", "1"} {
 		runDir := filepath.Join(dir, "run-"+goal)
 		code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--neighbours", "descent", "--recall-goal", goal,
-			"--check-recall", "500", "--iterations", "50", "--early-iterations", "20", "--quiet", "--score-sample", "0")
+			"--check-recall", "500", "--steps", "50", "--early-steps", "20", "--quiet", "--score-sample", "0")
 		if code != 0 {
 			t.Fatalf("exit %d: %s", code, errs)
 		}
@@ -260,7 +260,7 @@ func TestEmbedRecallGoal(t *testing.T) {
 func TestEmbedForeignParquet(t *testing.T) {
 	runDir := filepath.Join(t.TempDir(), "run")
 	code, _, errs := runCLI("embed", "--input", "../../ingest/testdata/buoys.parquet", "--run", runDir,
-		"--id", "station_id", "--label", "site", "--perplexity", "20", "--iterations", "200", "--early-iterations", "60", "--quiet")
+		"--id", "station_id", "--label", "site", "--perplexity", "20", "--steps", "200", "--early-steps", "60", "--quiet")
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
@@ -285,7 +285,7 @@ func TestEmbedAboveExactKL(t *testing.T) {
 	in := writeDemoTable(t, dir, n)
 	runDir := filepath.Join(dir, "run")
 	code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--label", "population",
-		"--iterations", "30", "--early-iterations", "10", "--quiet", "--score-sample", "200")
+		"--steps", "30", "--early-steps", "10", "--quiet", "--score-sample", "200")
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
@@ -310,12 +310,12 @@ func TestEmbedAboveExactKL(t *testing.T) {
 func TestWarnsIDFeature(t *testing.T) {
 	dir := t.TempDir()
 	in := writeDemoTable(t, dir, 300)
-	args := []string{"embed", "--input", in, "--run", filepath.Join(dir, "noid"), "--perplexity", "10", "--iterations", "30", "--early-iterations", "10", "--quiet"}
+	args := []string{"embed", "--input", in, "--run", filepath.Join(dir, "noid"), "--perplexity", "10", "--steps", "30", "--early-steps", "10", "--quiet"}
 	code, _, errs := runCLI(args...)
 	if code != 0 || strings.Count(errs, `feature column "id" looks like a row identifier`) != 1 {
 		t.Errorf("without --id: exit %d, stderr %q", code, errs)
 	}
-	code, _, errs = runCLI(append(args[:4:4], filepath.Join(dir, "withid"), "--id", "id", "--iterations", "30", "--early-iterations", "10", "--quiet")...)
+	code, _, errs = runCLI(append(args[:4:4], filepath.Join(dir, "withid"), "--id", "id", "--steps", "30", "--early-steps", "10", "--quiet")...)
 	if code != 0 || strings.Contains(errs, "row identifier") {
 		t.Errorf("with --id: exit %d, stderr %q", code, errs)
 	}

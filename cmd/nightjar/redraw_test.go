@@ -12,7 +12,7 @@ func TestRecolour(t *testing.T) {
 	in := writeDemoTable(t, dir, 300)
 	runDir := filepath.Join(dir, "run")
 	if code, out, errs := runCLI("embed", "--input", in, "--run", runDir, "--id", "id", "--label", "population",
-		"--iterations", "100", "--early-iterations", "30", "--perplexity", "10", "--quiet", "--score-sample", "0"); code != 0 {
+		"--steps", "100", "--early-steps", "30", "--perplexity", "10", "--quiet", "--score-sample", "0"); code != 0 {
 		t.Fatalf("embed: exit %d\n%s\n%s", code, out, errs)
 	}
 	if _, err := os.Stat(filepath.Join(runDir, "map.html")); err != nil {

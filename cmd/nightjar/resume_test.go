@@ -18,7 +18,7 @@ import (
 
 // killArgs are the settings of the kill/resume tests: small enough to run many
 // times, long enough in the optimiser that kills land in every phase.
-var killArgs = []string{"--iterations", "240", "--early-iterations", "60", "--checkpoint-every", "7",
+var killArgs = []string{"--steps", "240", "--early-steps", "60", "--checkpoint-every", "7",
 	"--quiet", "--score-sample", "0", "--id", "id", "--label", "population"}
 
 func killRows() int {

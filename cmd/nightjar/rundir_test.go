@@ -103,7 +103,7 @@ func TestOneWriter(t *testing.T) {
 	})
 	t.Run("after a phase", func(t *testing.T) {
 		runDir := filepath.Join(dir, "later")
-		args := []string{"embed", "--input", in, "--run", runDir, "--iterations", "600", "--checkpoint-every", "7", "--score-sample", "0"}
+		args := []string{"embed", "--input", in, "--run", runDir, "--steps", "600", "--checkpoint-every", "7", "--score-sample", "0"}
 		first := exec.Command(binary, args...)
 		pipe, err := first.StderrPipe()
 		if err != nil {
@@ -177,7 +177,7 @@ type stopFile struct {
 func TestKillAtFirstManifest(t *testing.T) {
 	dir := t.TempDir()
 	in := writeDemoTable(t, dir, 600)
-	args := []string{"--iterations", "120", "--early-iterations", "30", "--checkpoint-every", "20", "--score-sample", "0", "--id", "id", "--label", "population"}
+	args := []string{"--steps", "120", "--early-steps", "30", "--checkpoint-every", "20", "--score-sample", "0", "--id", "id", "--label", "population"}
 	whole := filepath.Join(dir, "whole")
 	if code, _, errs := runCLI(append([]string{"embed", "--input", in, "--run", whole, "--quiet"}, args...)...); code != 0 {
 		t.Fatalf("uninterrupted run: %d %s", code, errs)
@@ -222,7 +222,7 @@ func TestKillAtFirstManifest(t *testing.T) {
 func interruptedRun(t *testing.T, in, runDir string, seed string) {
 	t.Helper()
 	s := nightjar.DefaultSettings()
-	for _, kv := range [][2]string{{"iterations", "200"}, {"early-iterations", "50"}, {"seed", seed}, {"id", "id"}, {"label", "population"}} {
+	for _, kv := range [][2]string{{"steps", "200"}, {"early-steps", "50"}, {"seed", seed}, {"id", "id"}, {"label", "population"}} {
 		if err := s.Set(kv[0], kv[1]); err != nil {
 			t.Fatal(err)
 		}
@@ -334,7 +334,7 @@ func TestBatchLog(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	cmd := exec.Command(binary, "embed", "--input", in, "--run", filepath.Join(dir, "run"), "--iterations", "200", "--early-iterations", "50", "--score-sample", "300")
+	cmd := exec.Command(binary, "embed", "--input", in, "--run", filepath.Join(dir, "run"), "--steps", "200", "--early-steps", "50", "--score-sample", "300")
 	cmd.Stderr = f
 	if err := cmd.Run(); err != nil {
 		t.Fatal(err)
@@ -356,7 +356,7 @@ func TestBatchLog(t *testing.T) {
 	}
 	// --quiet keeps the phase summaries only.
 	var qb bytes.Buffer
-	q := exec.Command(binary, "embed", "--input", in, "--run", filepath.Join(dir, "quiet"), "--iterations", "200", "--early-iterations", "50", "--score-sample", "0", "--quiet")
+	q := exec.Command(binary, "embed", "--input", in, "--run", filepath.Join(dir, "quiet"), "--steps", "200", "--early-steps", "50", "--score-sample", "0", "--quiet")
 	q.Stderr = &qb
 	if err := q.Run(); err != nil {
 		t.Fatal(err)
@@ -390,7 +390,7 @@ func TestFailedStartReplaced(t *testing.T) {
 	dir := t.TempDir()
 	in := writeDemoTable(t, dir, 300)
 	runDir := filepath.Join(dir, "run")
-	args := []string{"embed", "--input", in, "--run", runDir, "--iterations", "60", "--early-iterations", "20", "--score-sample", "0", "--quiet", "--label", "population"}
+	args := []string{"embed", "--input", in, "--run", runDir, "--steps", "60", "--early-steps", "20", "--score-sample", "0", "--quiet", "--label", "population"}
 	if code, _, errs := runCLI(append(args, "--id", "identifier")...); code != exitBadInput || !strings.Contains(errs, "identifier") {
 		t.Fatalf("misspelt --id: exit %d: %s", code, errs)
 	}

@@ -56,7 +56,7 @@ func TestSlurmRequeue(t *testing.T) {
 		t.Fatal(err)
 	}
 	in := writeDemoTable(t, dir, 3000)
-	args := []string{"--id", "id", "--label", "population", "--iterations", "1500", "--checkpoint-every", "10", "--score-sample", "0"}
+	args := []string{"--id", "id", "--label", "population", "--steps", "1500", "--checkpoint-every", "10", "--score-sample", "0"}
 
 	whole := filepath.Join(dir, "whole")
 	if code, _, errs := runCLI(append([]string{"embed", "--input", in, "--run", whole, "--quiet"}, args...)...); code != 0 {

@@ -18,8 +18,8 @@ func TestSubsampleStart(t *testing.T) {
 	var files [2][]byte
 	for i := range files {
 		runDir := filepath.Join(dir, "run"+string(rune('a'+i)))
-		code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--start", "subsample", "--start-rows", "400",
-			"--late-exaggeration", "2", "--iterations", "200", "--early-iterations", "60", "--quiet", "--score-sample", "500")
+		code, _, errs := runCLI("embed", "--input", in, "--run", runDir, "--start-map", "subsample", "--start-sample", "400",
+			"--main-exaggeration", "2", "--steps", "200", "--early-steps", "60", "--quiet", "--score-sample", "500")
 		if code != 0 {
 			t.Fatalf("exit %d: %s", code, errs)
 		}
@@ -38,9 +38,9 @@ func TestSubsampleStart(t *testing.T) {
 		}
 	}
 	if !bytes.Equal(files[0], files[1]) {
-		t.Error("two runs with --start subsample differ")
+		t.Error("two runs with --start-map subsample differ")
 	}
-	for _, bad := range [][]string{{"--start", "random"}, {"--start", "subsample", "--start-rows", "10"}, {"--late-exaggeration", "0"}} {
+	for _, bad := range [][]string{{"--start-map", "random"}, {"--start-map", "subsample", "--start-sample", "10"}, {"--main-exaggeration", "0"}} {
 		code, _, errs := runCLI(slices.Concat([]string{"embed", "--input", in, "--run", filepath.Join(dir, "bad")}, bad)...)
 		if code != exitBadInput {
 			t.Errorf("%v: exit %d (%s), want %d", bad, code, errs, exitBadInput)
