@@ -9,6 +9,7 @@ import (
 	"os"
 
 	"github.com/apache/arrow/go/v17/arrow"
+	"github.com/apache/arrow/go/v17/arrow/array"
 	"github.com/apache/arrow/go/v17/arrow/ipc"
 	"github.com/apache/arrow/go/v17/arrow/memory"
 	"github.com/apache/arrow/go/v17/parquet"
@@ -89,8 +90,16 @@ func (p *recordPlan) start(rec arrow.Record) error {
 			widths[j] = as.cols[j].Width
 		case ci.width > 0:
 			widths[j] = ci.width
+			// The schema's width must be the data's: a damaged one must
+			// not name columns the file does not hold.
+			if l, ok := rec.Column(p.rec.features[j]).(array.ListLike); ok && int64(l.ListValues().Len()) < rec.NumRows()*int64(ci.width) {
+				return inputErr(as.path, ci.name, 0, "corrupt vector column: %d values for %d rows of %d", l.ListValues().Len(), rec.NumRows(), ci.width)
+			}
 		default:
-			if widths[j] = firstWidth(rec.Column(p.rec.features[j])); widths[j] <= 0 {
+			switch widths[j] = firstWidth(rec.Column(p.rec.features[j])); {
+			case widths[j] == -2:
+				return inputErr(as.path, ci.name, 1, "corrupt list offsets")
+			case widths[j] <= 0:
 				return inputErr(as.path, ci.name, 0, "the first %d rows of the vector column are null or empty: its width is unknown", rec.NumRows())
 			}
 		}
@@ -484,9 +493,9 @@ type cappedAlloc struct {
 }
 
 // allocFor returns the allocator for a file of the given size: up to 64 bytes per
-// byte of file (room for compressed buffers) and at least 256 MiB per allocation.
+// byte of file (room for compressed buffers) and at least 64 MiB per allocation.
 func allocFor(size int64) cappedAlloc {
-	return cappedAlloc{limit: int(max(256<<20, min(64*size, 1<<40))), mem: memory.DefaultAllocator}
+	return cappedAlloc{limit: int(max(64<<20, min(64*size, 1<<40))), mem: memory.DefaultAllocator}
 }
 
 func (c cappedAlloc) check(n int) {

@@ -87,13 +87,13 @@ type fewInts struct {
 
 // presizeRows returns how many rows to allocate up front for a file of fileSize bytes
 // whose metadata announces total rows of d features: total, unless the matrix would
-// exceed both 1 GiB and 64 bytes per byte of file (a damaged header must not make us
-// allocate without bound; the matrix then grows as rows arrive).
+// exceed both 64 MiB and 64 bytes per byte of file (a damaged header must not make us
+// allocate what the file cannot hold; the matrix then grows as rows arrive).
 func presizeRows(total int64, d int, fileSize int64) int64 {
 	if total <= 0 || d <= 0 {
 		return 0
 	}
-	limit := max(int64(1)<<30, 64*fileSize) / (4 * int64(d))
+	limit := max(int64(64)<<20, 64*fileSize) / (4 * int64(d))
 	if total > limit {
 		return 0
 	}

@@ -36,13 +36,14 @@ func compressionOf(head []byte) string {
 
 // decompressor returns a streaming reader of the decompressed bytes of r for
 // gzip or zstd (concatenated gzip members and zstd frames are read through).
-// zstd decoding runs on the calling goroutine with a window of at most 256 MiB.
+// zstd decoding runs on the calling goroutine with a window of at most 32 MiB
+// (every compression level of the zstd tool but --long and --ultra fits).
 func decompressor(kind string, r io.Reader) (io.ReadCloser, error) {
 	switch kind {
 	case "gzip":
 		return gzip.NewReader(r)
 	case "zstd":
-		d, err := zstd.NewReader(r, zstd.WithDecoderConcurrency(1), zstd.WithDecoderMaxWindow(256<<20), zstd.WithDecoderLowmem(true))
+		d, err := zstd.NewReader(r, zstd.WithDecoderConcurrency(1), zstd.WithDecoderMaxWindow(32<<20), zstd.WithDecoderLowmem(true))
 		if err != nil {
 			return nil, err
 		}

@@ -12,7 +12,7 @@ import (
 	"github.com/klauspost/compress/zstd"
 )
 
-func gzipBytes(t *testing.T, b []byte) []byte {
+func gzipBytes(t testing.TB, b []byte) []byte {
 	t.Helper()
 	var buf bytes.Buffer
 	w := gzip.NewWriter(&buf)
@@ -23,7 +23,7 @@ func gzipBytes(t *testing.T, b []byte) []byte {
 	return buf.Bytes()
 }
 
-func zstdBytes(t *testing.T, b []byte) []byte {
+func zstdBytes(t testing.TB, b []byte) []byte {
 	t.Helper()
 	w, err := zstd.NewWriter(nil)
 	if err != nil {

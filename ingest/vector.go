@@ -28,8 +28,8 @@ func isVectorElem(dt arrow.DataType) bool {
 	return isIntegerType(dt)
 }
 
-// firstWidth returns the length of the first non-null list of arr, or -1 when
-// every row is null.
+// firstWidth returns the length of the first non-null list of arr, -1 when
+// every row is null, or -2 when its offsets lie outside the values.
 func firstWidth(arr arrow.Array) int {
 	l, ok := arr.(array.ListLike)
 	if !ok {
@@ -38,6 +38,9 @@ func firstWidth(arr arrow.Array) int {
 	for i := 0; i < l.Len(); i++ {
 		if !l.IsNull(i) {
 			s, e := l.ValueOffsets(i)
+			if s < 0 || e < s || e > int64(l.ListValues().Len()) {
+				return -2
+			}
 			return int(e - s)
 		}
 	}
