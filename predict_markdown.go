@@ -29,7 +29,7 @@ func writePredictionMarkdown(w io.Writer, pf *PredictionFile, meta bench.Meta) e
 	for _, sp := range pf.Settings {
 		b.WriteString("| " + strings.Join(summaryRow(sp, pf.Ladder), " | ") + " |\n")
 	}
-	b.WriteString("\nEach phase's seconds are fitted with the growth its method implies (a + b·N for reading, affinities, the recall check, scores and outputs, and for the grid optimiser, whose fixed part is the grid; a + b·N·ln N for NN-descent, HNSW and Barnes–Hut; a + b·N² for exact searches), NN-descent's passes are counted from the recalls it estimated, and the phases are summed; a range is about two standard deviations of the fits and of one run's noise. A prediction is refused where the measurements do not follow the law. Quality is measured on the subsamples, not predicted: the trend says how it moved with the rows.\n")
+	b.WriteString("\nEach phase's seconds follow the growth its method implies (a + b·N for reading, affinities, the recall check, scores and outputs, and for the grid optimiser, whose fixed part is the grid; a + b·N·ln N for NN-descent, HNSW and Barnes–Hut; a + b·N² for exact searches): the law is checked on every subsample and extended from the two largest, NN-descent's passes are counted from the recalls it estimated, and the phases are summed. A range is about two standard deviations: the fits, the gap between the fit of all subsamples and of the two largest, and the noise of one run (wider for runs during which other programs used the cores). A prediction is refused where the measurements do not follow the law. Quality is measured on the subsamples, not predicted: the trend says how it moved with the rows.\n")
 	for _, n := range meta.Notes {
 		fmt.Fprintf(&b, "\n%s\n", n)
 	}

@@ -57,7 +57,7 @@ func WritePredictionReports(out string, pf *PredictionFile, meta bench.Meta, key
 	}
 	title := fmt.Sprintf("%s, %s rows: trustworthiness@%d against predicted time (%d cores)", meta.Dataset, thousands(pf.Rows), meta.K, pf.Cores)
 	if err := checkpoint.AtomicWrite(png, func(w io.Writer) error {
-		return figure.DrawPrediction(w, title, fmt.Sprintf("trustworthiness@%d on the largest subsample (bar: all subsamples)", meta.K), pts)
+		return figure.DrawPrediction(w, title, fmt.Sprintf("trustworthiness@%d, largest subsample (bar: all)", meta.K), pts)
 	}); err != nil {
 		return false, fmt.Errorf("writing predict.png: %w", err)
 	}

@@ -58,14 +58,19 @@
 // samples follow the law; Fit.Exponent, the least-squares slope of ln t
 // against ln N, says how fast they grow, whatever the law.
 //
-// Predict extrapolates to the full N and refuses, saying why, when the
+// Predict checks the law on every sample and extrapolates it from the two
+// largest sizes (where terms that level off at small N, such as a grid
+// that grows with the map's width or the garbage collector's slack, bend
+// the curve least); it refuses, saying why, when the
 // samples span fewer than three sizes (two parameters leave nothing to test
 // the law with), when the full N is more than 200 times the largest sample,
 // when χ²/dof exceeds 9 (residuals three times the noise), or when the
 // samples grow faster than the law allows or fall as N grows. Its range is
 // the prediction ± 2σ, σ² being the variance of a + b·g(N) from the
 // covariance of the fit (scaled by χ²/dof when above 1; the standard
-// propagation of a linear least-squares fit) plus the noise of one run.
+// propagation of a linear least-squares fit), plus the squared gap between
+// the fits of all samples and of the two largest sizes over 2² (the range
+// reaches the former), plus the noise of one run.
 //
 // ForecastRun sums the phases' predictions into a wall time, with what the
 // phases do not account for (process start, files written between phases)

@@ -127,15 +127,11 @@ func ForecastRun(laws []PhaseLaw, runs []RunSample, n int, lim Limits) Forecast 
 	return fc
 }
 
-// fitVar is the variance of the fitted law at the predicted size, and
-// noiseSD the noise of one measurement there (as Predict combined them).
-func (e Estimate) fitVar() float64 {
-	f := e.Fit
-	x := f.Law.g(e.N)
-	return math.Max(0, f.cov[0]+2*x*f.cov[1]+x*x*f.cov[2])
-}
+// fitVar is the variance of the prediction from the fits, and noiseSD the
+// noise of one run at the predicted size (as Predict combined them).
+func (e Estimate) fitVar() float64 { return e.varFit }
 
-func (e Estimate) noiseSD() float64 { return e.Fit.scale * e.Fit.noise.sd(e.Value) }
+func (e Estimate) noiseSD() float64 { return e.noise }
 
 // String is a one-line account of an estimate, for messages and tests.
 func (e Estimate) String() string {

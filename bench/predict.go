@@ -275,7 +275,7 @@ type Limits struct {
 	MinSizes  int     // distinct sizes, so that the law is checked and not only fitted
 	MaxChi2   float64 // largest Fit.Chi2: residuals this many times the noise variance
 	MaxReach  float64 // largest ratio of the predicted size to the largest sampled size
-	MinSignal float64 // exponent checks apply only where every value exceeds this many noise Abs
+	MinSignal float64 // exponent checks apply only where every value exceeds this many noise Abs (and no sample's Rel exceeds 0.25)
 	Z         float64 // half-width of the range in standard deviations
 }
 
@@ -293,20 +293,32 @@ type Estimate struct {
 	Value, Low, High float64
 	// Refused is non-empty when the fit may not predict: it says why.
 	Refused string
-	Fit     Fit
+	// Fit is the law fitted to every sample, which the checks judge; Local
+	// the same law through the samples at the two largest sizes, which
+	// predicts.
+	Fit, Local Fit
+	varFit     float64 // variance of the prediction from the fits
+	noise      float64 // standard deviation of one run at N
 }
 
-// Predict fits law l to the samples and predicts the value at n rows,
-// with the range Value ± Z·σ where σ² is the variance of the fitted law at
-// n (from the covariance of a and b) plus the noise of one new
-// measurement. It refuses, saying why, when the samples span fewer than
-// lim.MinSizes sizes, when n lies more than lim.MaxReach times beyond the
-// largest, when the residuals exceed lim.MaxChi2, or when the samples grow
-// faster than the law admits or shrink as N grows.
+// Predict fits law l to the samples, checks the fit (refusing, with the
+// reason, when the samples span fewer than lim.MinSizes sizes, when n lies
+// more than lim.MaxReach times beyond the largest, when the residuals
+// exceed lim.MaxChi2, or when quiet samples grow faster than the law admits
+// or shrink as N grows) and predicts the value at n rows.
+//
+// The prediction follows the law through the two largest sizes (Local):
+// the laws hold for large N, while at small N terms that level off (a grid
+// whose size follows the map's width, the collector's slack, caches) bend
+// the curve, so the samples nearest the full size are the least biased. Its
+// range is Value ± Z·σ, where σ² is the variance of the local fit at n
+// (from its covariance), plus the squared gap to the fit of all samples
+// divided by Z² (so that the range reaches it), plus the noise of one new
+// run.
 func Predict(l Law, samples []Sample, n float64, ns Noise, lim Limits) Estimate {
 	e := Estimate{N: n, Value: math.NaN(), Low: math.NaN(), High: math.NaN()}
 	f, err := FitLaw(l, samples, ns)
-	e.Fit = f
+	e.Fit, e.Local = f, f
 	if err != nil {
 		e.Refused = err.Error()
 		return e
@@ -315,10 +327,42 @@ func Predict(l Law, samples []Sample, n float64, ns Noise, lim Limits) Estimate 
 		e.Refused = reason
 		return e
 	}
-	e.Value = f.At(n)
-	half := lim.Z * math.Sqrt(e.fitVar()+sq(e.noiseSD()))
+	if loc, err := FitLaw(l, twoLargest(samples), ns); err == nil {
+		e.Local = loc
+	}
+	e.Value = e.Local.At(n)
+	e.varFit = e.Local.varAt(n) + sq(f.At(n)-e.Value)/sq(lim.Z)
+	e.noise = f.scale * f.noise.sd(e.Value)
+	half := lim.Z * math.Sqrt(e.varFit+sq(e.noise))
 	e.Low, e.High = math.Max(0, e.Value-half), e.Value+half
 	return e
+}
+
+// varAt is the variance of the fitted law at n rows, from the covariance
+// of (A, B).
+func (f Fit) varAt(n float64) float64 {
+	x := f.Law.g(n)
+	return math.Max(0, f.cov[0]+2*x*f.cov[1]+x*x*f.cov[2])
+}
+
+// twoLargest returns the samples at the two largest sizes.
+func twoLargest(samples []Sample) []Sample {
+	var top, second float64
+	for _, s := range samples {
+		switch {
+		case s.N > top:
+			top, second = s.N, top
+		case s.N < top && s.N > second:
+			second = s.N
+		}
+	}
+	var out []Sample
+	for _, s := range samples {
+		if s.N >= second {
+			out = append(out, s)
+		}
+	}
+	return out
 }
 
 // refusal returns why f may not predict at n, or "".
@@ -332,9 +376,10 @@ func refusal(f Fit, samples []Sample, n float64, lim Limits) string {
 	if f.Chi2 > lim.MaxChi2 {
 		return fmt.Sprintf("the times do not follow %s: residuals %.1f times the noise", f.Law, math.Sqrt(f.Chi2))
 	}
+	// Growth is judged only on quiet samples well above the noise.
 	signal := true
 	for _, s := range samples {
-		signal = signal && s.Value > lim.MinSignal*f.noise.Abs
+		signal = signal && s.Value > lim.MinSignal*f.noise.Abs && s.Rel <= 0.25
 	}
 	if signal && !math.IsNaN(f.Exponent) {
 		if f.Exponent > f.Law.maxExponent() {
