@@ -187,7 +187,12 @@ func fillFloats[T float32 | float64](b *builder, dst []float32, j int, vals []T,
 		}
 		dst[i*d+j] = f
 		if f-f != 0 {
-			b.markBad(i, j, floatReason(f), "")
+			if w := float64(v); w-w == 0 {
+				// A finite float64 beyond float32's range.
+				b.markBad(i, j, badRange, strconv.FormatFloat(w, 'g', -1, 64))
+			} else {
+				b.markBad(i, j, floatReason(f), "")
+			}
 		}
 	}
 }

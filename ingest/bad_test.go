@@ -158,7 +158,7 @@ func TestBadInput(t *testing.T) {
 		{"null id", nullID, Options{ID: "id"}, "id", 3, "id is null"},
 		{"NaN csv", put("n.csv", []byte("a,b\n1,2\n3,nan\n")), Options{}, "b", 2, "value is NaN"},
 		{"+Inf csv", put("i.csv", []byte("a,b\n1,2\n3,4\n5,+Inf\n")), Options{}, "b", 3, "value is +Inf"},
-		{"overflow csv", put("o.csv", []byte("a,b\n1,1e39\n")), Options{}, "b", 1, "value is +Inf"},
+		{"overflow csv", put("o.csv", []byte("a,b\n1,1e39\n")), Options{}, "b", 1, "outside the float32 range"},
 		{"empty cell csv", put("c.csv", []byte("a,b\n1,2\n,4\n")), Options{}, "a", 2, "value is null"},
 		{"text in number csv", put("x.csv", []byte("a,b\n1,2\n3,4\n5,n/a\n")), Options{}, "b", 3, `value is not a number: "n/a"`},
 		{"null id csv", put("ni.csv", []byte("id,b\n1,2\n,4\n")), Options{ID: "id"}, "id", 2, "id is null"},

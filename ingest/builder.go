@@ -20,6 +20,7 @@ const (
 	badNegInf
 	badNull
 	badText
+	badRange
 )
 
 var badReason = [...]string{
@@ -28,6 +29,7 @@ var badReason = [...]string{
 	badNegInf: "value is -Inf",
 	badNull:   "value is null",
 	badText:   "value is not a number",
+	badRange:  "value is outside the float32 range (about ±3.4e38) in which features are held",
 }
 
 // mark records the first rejected feature of a row.

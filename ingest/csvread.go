@@ -50,6 +50,13 @@ func parseNumber(s string) (float64, bool) {
 	return v, true
 }
 
+// finiteText reports whether a number's text is finite (not NaN or Inf), so
+// that an infinite value parsed from it overflowed float32.
+func finiteText(s string) bool {
+	s = strings.TrimLeft(strings.TrimSpace(s), "+-")
+	return s != "" && s[0]|0x20 != 'n' && s[0]|0x20 != 'i'
+}
+
 // decimalSyntax reports whether s is a decimal number as spreadsheets and data
 // tools write them — [sign] digits [. digits] [e|E [sign] digits], with at least
 // one digit before or after the point — or, in any case, [sign] NaN, Inf or
@@ -497,7 +504,11 @@ func (cp *csvPlan) parseRows(b *builder, dst []float32, first, lo, hi int) {
 			}
 			row[j] = float32(v)
 			if row[j]-row[j] != 0 {
-				setMark(j, floatReason(row[j]), "")
+				if finiteText(s) {
+					setMark(j, badRange, s) // a finite number that overflows float32
+				} else {
+					setMark(j, floatReason(row[j]), "")
+				}
 			}
 		}
 	}
