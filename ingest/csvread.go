@@ -11,6 +11,7 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+	"unicode/utf8"
 
 	"nightjar/internal/par"
 )
@@ -463,6 +464,9 @@ func (cp *csvPlan) appendPass(b *builder, keep []bool, n int) error {
 			}
 		}
 		if cp.labelP != nil && cp.labelKey < 0 {
+			if !utf8.ValidString(cp.labels[i]) {
+				return inputErr(cp.labelP.file, cp.labelP.col.Name, b.seen+int64(i)+1, "text is not valid UTF-8 (a CSV must be UTF-8 throughout)")
+			}
 			cp.labelP.appendCSVLabel(cp.labels[i])
 		}
 	}
@@ -519,6 +523,9 @@ func (cp *csvPlan) parseRows(b *builder, dst []float32, first, lo, hi int) {
 func (p *passCol) appendCSVID(s string, row int64) error {
 	if s == "" {
 		return inputErr(p.file, p.col.Name, row, "id is null (empty)")
+	}
+	if !utf8.ValidString(s) {
+		return inputErr(p.file, p.col.Name, row, "text is not valid UTF-8 (a CSV must be UTF-8 throughout)")
 	}
 	if p.col.Ints != nil {
 		if v, ok := parseCanonicalInt(s); ok {

@@ -323,7 +323,10 @@ func detect(path string, f io.ReaderAt, size int64) (format, compression string,
 	if looksLikeText(head, size > int64(len(head))) {
 		return "csv", "", nil
 	}
-	return "", "", inputErr(path, "", 0, "not a Parquet, Arrow or CSV table")
+	// One rule for text: a CSV is UTF-8 throughout. In the first bytes a
+	// file that is not UTF-8 text cannot be told from a binary one; further
+	// on, a value that is not UTF-8 is refused naming its row and column.
+	return "", "", inputErr(path, "", 0, "not a Parquet, Arrow or CSV table (a CSV must be UTF-8 text, and the first bytes are not)")
 }
 
 // detectCompressed looks inside a compressed file: gzip or zstd text is CSV;
