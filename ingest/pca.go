@@ -6,6 +6,7 @@ import (
 	"math"
 
 	"gonum.org/v1/gonum/blas"
+	"gonum.org/v1/gonum/blas/blas32"
 	"gonum.org/v1/gonum/blas/blas64"
 	"gonum.org/v1/gonum/mat"
 
@@ -298,13 +299,13 @@ func (p *PCA) ProjectTo(dst []float64, m core.Matrix, threads int) {
 	if len(dst) != m.N*p.K {
 		panic(fmt.Sprintf("ingest: projection needs %d values, dst has %d", m.N*p.K, len(dst)))
 	}
+	if p.D > RandomizedAbove {
+		p.projectWide(dst, m, threads)
+		return
+	}
 	comps := blas64.General{Rows: p.K, Cols: p.D, Stride: p.D, Data: p.Components}
 	scratch := make([][]float64, max(1, threads)) // centred rows, per worker
-	block := PCABlockRows
-	if p.D > RandomizedAbove {
-		block = subspaceBlock(p.D) // wide rows: smaller blocks keep the scratch small
-	}
-	par.Blocks(m.N, block, threads, func(w, _, lo, hi int) {
+	par.Blocks(m.N, PCABlockRows, threads, func(w, _, lo, hi int) {
 		n := hi - lo
 		if cap(scratch[w]) < n*p.D {
 			scratch[w] = make([]float64, n*p.D)
@@ -336,4 +337,39 @@ func sumSquares(row []float32) float64 {
 		ss += float64(v) * float64(v)
 	}
 	return ss
+}
+
+// projectWide is ProjectTo for tables of more than RandomizedAbove columns:
+// each row centred in float32 and its score on each component a float32 dot
+// product (gonum's blas32.Dot, the same order of terms whatever the rows
+// around it), so the scores do not depend on how the rows come in chunks.
+func (p *PCA) projectWide(dst []float64, m core.Matrix, threads int) {
+	d, k := p.D, p.K
+	comps := make([]float32, k*d)
+	for i, v := range p.Components {
+		comps[i] = float32(v)
+	}
+	scratch := make([][]float32, max(1, threads))
+	par.Blocks(m.N, subspaceBlock(d), threads, func(w, _, lo, hi int) {
+		if scratch[w] == nil {
+			scratch[w] = make([]float32, d)
+		}
+		c := blas32.Vector{N: d, Inc: 1, Data: scratch[w]}
+		for i := lo; i < hi; i++ {
+			row := m.Data[i*d : (i+1)*d]
+			inv := 1.0
+			if p.Normalised {
+				inv = 1 / math.Sqrt(sumSquares(row))
+			}
+			for j, v := range row {
+				if p.Normalised {
+					v = float32(float64(v) * inv)
+				}
+				c.Data[j] = float32(float64(v) - p.Mean[j])
+			}
+			for q := range k {
+				dst[i*k+q] = float64(blas32.Dot(c, blas32.Vector{N: d, Inc: 1, Data: comps[q*d : (q+1)*d]}))
+			}
+		}
+	})
 }

@@ -199,19 +199,16 @@ func blockMean(x []float32, d int) []float32 {
 }
 
 // multiply sets part (ℓ×D) to (c·qᵀ)ᵀ·c for the centred block c = x − centre,
-// on worker w's scratch, and (pass 1) cs to Σ c and Σ c² per column. Both
-// products are computed as dot products of contiguous rows (c·qᵀ from the rows
-// of c and q, the second from the rows of (c·qᵀ)ᵀ and cᵀ), the fast form of
-// gonum's sgemm.
+// on worker w's scratch, and (pass 1) cs to Σ c and Σ c² per column: two
+// float32 matrix products by gonum's sgemm.
 func (s *subspace) multiply(x []float32, w int, part []float32, cs []float64) {
 	d, l := s.d, len(s.q32)/s.d
 	n := len(x) / d
-	if need := 2*n*d + 2*n*l; cap(s.scratch[w]) < need {
+	if need := n*d + n*l; cap(s.scratch[w]) < need {
 		s.scratch[w] = make([]float32, need)
 	}
 	buf := s.scratch[w]
-	c, ct := buf[:n*d], buf[n*d:2*n*d]
-	b, bt := buf[2*n*d:2*n*d+n*l], buf[2*n*d+n*l:2*n*d+2*n*l]
+	c, b := buf[:n*d], buf[n*d:n*d+n*l]
 	for i := range n {
 		row := x[i*d : (i+1)*d]
 		out := c[i*d : (i+1)*d]
@@ -219,41 +216,20 @@ func (s *subspace) multiply(x []float32, w int, part []float32, cs []float64) {
 			out[j] = v - s.centre[j]
 		}
 	}
-	transpose(ct, c, n, d)
 	if s.pass == 0 {
 		clear(cs)
-		for j := range d {
-			var sum, sq float64
-			for _, v := range ct[j*n : (j+1)*n] {
-				sum += float64(v)
-				sq += float64(v) * float64(v)
-			}
-			cs[j], cs[d+j] = sum, sq
-		}
-	}
-	blas32.Gemm(blas.NoTrans, blas.Trans, 1,
-		blas32.General{Rows: n, Cols: d, Stride: d, Data: c},
-		blas32.General{Rows: l, Cols: d, Stride: d, Data: s.q32}, 0,
-		blas32.General{Rows: n, Cols: l, Stride: l, Data: b})
-	transpose(bt, b, n, l)
-	blas32.Gemm(blas.NoTrans, blas.Trans, 1,
-		blas32.General{Rows: l, Cols: n, Stride: n, Data: bt},
-		blas32.General{Rows: d, Cols: n, Stride: n, Data: ct}, 0,
-		blas32.General{Rows: l, Cols: d, Stride: d, Data: part})
-}
-
-// transpose sets dst (cols×rows) to the transpose of src (rows×cols), in tiles.
-func transpose(dst, src []float32, rows, cols int) {
-	const tile = 32
-	for i0 := 0; i0 < rows; i0 += tile {
-		for j0 := 0; j0 < cols; j0 += tile {
-			for i := i0; i < min(i0+tile, rows); i++ {
-				for j := j0; j < min(j0+tile, cols); j++ {
-					dst[j*rows+i] = src[i*cols+j]
-				}
+		sum, sq := cs[:d], cs[d:2*d]
+		for i := range n {
+			for j, v := range c[i*d : (i+1)*d] {
+				sum[j] += float64(v)
+				sq[j] += float64(v) * float64(v)
 			}
 		}
 	}
+	cm := blas32.General{Rows: n, Cols: d, Stride: d, Data: c}
+	bm := blas32.General{Rows: n, Cols: l, Stride: l, Data: b}
+	blas32.Gemm(blas.NoTrans, blas.Trans, 1, cm, blas32.General{Rows: l, Cols: d, Stride: d, Data: s.q32}, 0, bm)
+	blas32.Gemm(blas.Trans, blas.NoTrans, 1, bm, cm, 0, blas32.General{Rows: l, Cols: d, Stride: d, Data: part})
 }
 
 // endPass finishes a pass: the covariance times the block, a Rayleigh–Ritz
