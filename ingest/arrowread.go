@@ -222,22 +222,35 @@ func recordSel(sc *arrow.Schema, sel selection) selection {
 }
 
 func (as *assembly) readParquet(path string, f *os.File) error {
-	size := fileSize(path)
+	st, err := f.Stat()
+	if err != nil {
+		return wrapInputErr(path, "", 0, err, "cannot read")
+	}
+	size := st.Size()
 	mem := allocFor(size)
 	props := parquet.NewReaderProperties(mem)
 	// Stream each column chunk through a small buffer instead of loading whole column
 	// chunks: a row group of a wide table would otherwise sit in memory at once.
 	props.BufferedStreamEnabled = true
 	props.BufferSize = 64 << 10
-	pf, err := file.NewParquetReader(f, file.WithReadProps(props))
+	opts := []file.ReadOption{file.WithReadProps(props)}
+	cached := as.ds.footers.get(path, size, st.ModTime())
+	if cached != nil {
+		opts = append(opts, file.WithMetadata(cached))
+	}
+	pf, err := file.NewParquetReader(f, opts...)
 	if err != nil {
 		return wrapInputErr(path, "", 0, err, "cannot read Parquet metadata")
 	}
 	defer pf.Close()
 	// One buffer per column read: at most about 32 MiB in all for wide tables.
 	props.BufferSize = min(64<<10, max(8<<10, (32<<20)/max(1, int64(pf.MetaData().Schema.NumColumns()))))
-	if err := checkParquetMeta(path, pf.MetaData(), size); err != nil {
-		return err
+	if cached == nil {
+		if err := checkParquetMeta(path, pf.MetaData(), size); err != nil {
+			return err
+		}
+		dropStatistics(pf.MetaData())
+		as.ds.footers.put(path, size, st.ModTime(), pf.MetaData())
 	}
 	// Ignore an Arrow schema stored by an Arrow writer: with it pqarrow reads a
 	// dictionary column as dictionary arrays, which its record reader cannot return

@@ -26,6 +26,8 @@ type Dataset struct {
 	// Ignored lists files found under a directory or by a glob that are not
 	// tables by their name or first bytes (README.md, _SUCCESS, …).
 	Ignored []string
+
+	footers footerCache // Parquet footers read, for the passes that follow
 }
 
 // Part is one table file of a Dataset.
