@@ -108,7 +108,11 @@ func TestSlurmRequeue(t *testing.T) {
 			b, _ := os.ReadFile(logFile)
 			t.Fatalf("job %s ended %s (reason %s); log:\n%s", id, state, jobField(t, id, "Reason"), b)
 		}
-		if state == "PENDING" && jobField(t, id, "Reason") == "BeginTime" {
+		// Start it only once its first instance has finished (its batch
+		// step gone): a start on top of it fails the job.
+		if state == "PENDING" && jobField(t, id, "Reason") == "BeginTime" &&
+			exec.Command("pgrep", "-f", "slurmstepd: \\["+id+"\\.batch\\]").Run() != nil {
+			time.Sleep(time.Second)
 			_ = exec.Command("scontrol", "update", "jobid="+id, "StartTime=now").Run()
 		}
 		time.Sleep(300 * time.Millisecond)
