@@ -1,23 +1,8 @@
 package nightjar
 
 import (
-	"bufio"
-	"bytes"
-	"encoding/csv"
 	"encoding/json"
-	"errors"
 	"fmt"
-	"io"
-	"os"
-	"path"
-	"path/filepath"
-	"strconv"
-	"strings"
-
-	"github.com/apache/arrow/go/v17/arrow"
-	"github.com/apache/arrow/go/v17/arrow/ipc"
-	"github.com/apache/arrow/go/v17/parquet/file"
-	"github.com/apache/arrow/go/v17/parquet/pqarrow"
 
 	"nightjar/checkpoint"
 	"nightjar/ingest"
@@ -27,7 +12,11 @@ import (
 // features the map was made from (float32, after --reduce if any), their
 // names, and the --reduce projection with the names of the input columns it
 // projects. They are one artifact of the run directory, features.njs, with
-// named sections checked when loaded.
+// named sections checked when loaded: shape (N, D), names (JSON), hash (the
+// input's fingerprint), values (N×D float32, little-endian), and with a
+// projection pca_shape (K, D, rows fitted, passes, normalised), pca_totals
+// (total variance, angle bound), pca_names (JSON), pca_mean (D float64),
+// pca_components (K×D float64) and pca_variance (K float64).
 
 // fileFeatures is the artifact name (features.njs) and kindFeatures its kind.
 const (
@@ -46,21 +35,12 @@ type refFeatures struct {
 	SourceNames []string
 }
 
-// saveFeatures writes t's features (and the projection that made them) into
-// the run directory. With a projection, the names of the input columns are
-// read from the input's header or schema.
+// saveFeatures writes t's features (and the projection that made them, with
+// the names of the input columns it projects) into the run directory.
 func (j *job) saveFeatures(t *ingest.Table, pca *ingest.PCA) error {
 	f := refFeatures{X: t.Matrix, Names: t.Features, Hash: t.Hash, PCA: pca}
-	if pca != nil {
-		names, err := sourceFeatureNames(j.s.Input, ingest.Options{Features: j.s.Features, ID: j.s.ID, Label: j.s.Label})
-		switch {
-		case err != nil:
-			j.obs.Warn(fmt.Sprintf("the names of the features that --reduce projects could not be read (%v): placing new rows will check only their number", err))
-		case len(names) != pca.D:
-			j.obs.Warn(fmt.Sprintf("found %d feature names for the %d columns that --reduce projects: placing new rows will check only their number", len(names), pca.D))
-		default:
-			f.SourceNames = names
-		}
+	if pca != nil && len(t.SourceFeatures) == pca.D {
+		f.SourceNames = t.SourceFeatures
 	}
 	secs, err := featureSections(&f)
 	if err != nil {
@@ -90,7 +70,8 @@ func featureSections(f *refFeatures) ([]checkpoint.Section, error) {
 			return nil, err
 		}
 		secs = append(secs,
-			checkpoint.Section{Name: "pca_shape", Data: checkpoint.EncodeValues([]int64{int64(p.K), int64(p.D), p.N})},
+			checkpoint.Section{Name: "pca_shape", Data: checkpoint.EncodeValues([]int64{int64(p.K), int64(p.D), p.N, int64(p.Passes), boolInt(p.Normalised)})},
+			checkpoint.Section{Name: "pca_totals", Data: checkpoint.EncodeValues([]float64{p.TotalVariance, p.AngleBound})},
 			checkpoint.Section{Name: "pca_names", Data: src},
 			checkpoint.Section{Name: "pca_mean", Data: checkpoint.EncodeValues(p.Mean)},
 			checkpoint.Section{Name: "pca_components", Data: checkpoint.EncodeValues(p.Components)},
@@ -138,10 +119,15 @@ func pcaFromSections(secs []checkpoint.Section, f *refFeatures) error {
 	if err != nil {
 		return err
 	}
-	if len(ps) != 3 || ps[0] != int64(f.X.D) || ps[1] < ps[0] {
+	if len(ps) != 5 || ps[0] != int64(f.X.D) || ps[1] < ps[0] {
 		return fmt.Errorf("features: projection shape %v does not fit %d columns", ps, f.X.D)
 	}
-	p := &ingest.PCA{K: int(ps[0]), D: int(ps[1]), N: ps[2]}
+	p := &ingest.PCA{K: int(ps[0]), D: int(ps[1]), N: ps[2], Passes: int(ps[3]), Normalised: ps[4] == 1}
+	totals, err := checkpoint.SectionValues[float64](secs, "pca_totals")
+	if err != nil || len(totals) != 2 {
+		return fmt.Errorf("features: projection totals damaged")
+	}
+	p.TotalVariance, p.AngleBound = totals[0], totals[1]
 	if p.Mean, err = checkpoint.SectionValues[float64](secs, "pca_mean"); err != nil {
 		return err
 	}
@@ -188,167 +174,9 @@ func loadFeatures(run *checkpoint.Run) (*refFeatures, error) {
 	return f, nil
 }
 
-// sourceFeatureNames returns the names of the feature columns that reading
-// the table at p with opt selects, without reading its values: from the
-// schema of a Parquet or Arrow IPC file, from the header and the first 1,000
-// rows of a CSV file. The rules are those of the ingest package (a column
-// is numeric by its Arrow type, or in CSV when at least half of its non-empty
-// sampled values are numbers; no Features means every numeric column but
-// the id and the label; a pattern adds its numeric matches in file order).
-func sourceFeatureNames(p string, opt ingest.Options) ([]string, error) {
-	cols, err := tableColumns(p)
-	if err != nil {
-		return nil, err
+func boolInt(b bool) int64 {
+	if b {
+		return 1
 	}
-	pass := func(name string) bool { return name == opt.ID || name == opt.Label }
-	var out []string
-	taken := map[string]bool{}
-	if len(opt.Features) == 0 {
-		for _, c := range cols {
-			if c.numeric && !pass(c.name) {
-				out = append(out, c.name)
-			}
-		}
-		return out, nil
-	}
-	for _, want := range opt.Features {
-		for _, c := range cols {
-			ok, _ := path.Match(want, c.name)
-			if strings.ContainsAny(want, `*?[\`) {
-				ok = ok && c.numeric && !pass(c.name)
-			} else {
-				ok = want == c.name
-			}
-			if ok && !taken[c.name] {
-				taken[c.name] = true
-				out = append(out, c.name)
-			}
-		}
-	}
-	return out, nil
-}
-
-type tableColumn struct {
-	name    string
-	numeric bool
-}
-
-// tableColumns lists a table file's columns and whether each is numeric.
-func tableColumns(p string) ([]tableColumn, error) {
-	f, err := os.Open(p)
-	if err != nil {
-		return nil, err
-	}
-	defer f.Close()
-	head := make([]byte, 8)
-	n, _ := io.ReadFull(f, head)
-	head = head[:n]
-	if _, err := f.Seek(0, io.SeekStart); err != nil {
-		return nil, err
-	}
-	var sc *arrow.Schema
-	switch {
-	case bytes.HasPrefix(head, []byte("PAR1")):
-		pf, err := file.NewParquetReader(f)
-		if err != nil {
-			return nil, err
-		}
-		defer pf.Close()
-		// As the ingest package does, ignore an Arrow schema stored by an
-		// Arrow writer: the Parquet types decide.
-		for _, kv := range pf.MetaData().KeyValueMetadata() {
-			if kv.Key == "ARROW:schema" {
-				kv.Key = "ARROW:schema (not used by nightjar)"
-			}
-		}
-		fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{}, nil)
-		if err != nil {
-			return nil, err
-		}
-		if sc, err = fr.Schema(); err != nil {
-			return nil, err
-		}
-	case bytes.HasPrefix(head, []byte("ARROW1")):
-		r, err := ipc.NewFileReader(f)
-		if err != nil {
-			return nil, err
-		}
-		defer r.Close()
-		sc = r.Schema()
-	case bytes.HasPrefix(head, []byte{0xff, 0xff, 0xff, 0xff}):
-		r, err := ipc.NewReader(bufio.NewReader(f))
-		if err != nil {
-			return nil, err
-		}
-		defer r.Release()
-		sc = r.Schema()
-	default:
-		return csvColumns(p, f)
-	}
-	var cols []tableColumn
-	for _, fd := range sc.Fields() {
-		cols = append(cols, tableColumn{name: fd.Name, numeric: numericArrow(fd.Type)})
-	}
-	return cols, nil
-}
-
-// numericArrow tells whether the ingest package reads columns of type dt
-// as features.
-func numericArrow(dt arrow.DataType) bool {
-	switch dt.ID() {
-	case arrow.INT8, arrow.INT16, arrow.INT32, arrow.INT64,
-		arrow.UINT8, arrow.UINT16, arrow.UINT32, arrow.UINT64,
-		arrow.FLOAT16, arrow.FLOAT32, arrow.FLOAT64,
-		arrow.DECIMAL128, arrow.DECIMAL256:
-		return true
-	}
-	return false
-}
-
-// csvColumns reads a CSV header and classifies the columns on the first
-// 1,000 records.
-func csvColumns(p string, f *os.File) ([]tableColumn, error) {
-	br := bufio.NewReaderSize(f, 1<<20)
-	cr := csv.NewReader(br)
-	cr.Comma = ','
-	line, _ := br.Peek(min(br.Size(), 64<<10))
-	if k := bytes.IndexByte(line, '\n'); k >= 0 {
-		line = line[:k]
-	}
-	if strings.EqualFold(filepath.Ext(p), ".tsv") || (bytes.IndexByte(line, '\t') >= 0 && bytes.IndexByte(line, ',') < 0) {
-		cr.Comma = '\t'
-	}
-	header, err := cr.Read()
-	if err != nil {
-		return nil, fmt.Errorf("reading the CSV header: %w", err)
-	}
-	nonEmpty := make([]int, len(header))
-	numbers := make([]int, len(header))
-	for r := 0; r < 1000; r++ {
-		rec, err := cr.Read()
-		if errors.Is(err, io.EOF) {
-			break
-		}
-		if err != nil {
-			return nil, err
-		}
-		for c, s := range rec {
-			if s = strings.TrimSpace(s); s == "" {
-				continue
-			}
-			nonEmpty[c]++
-			if _, err := strconv.ParseFloat(s, 32); err == nil || errors.Is(err, strconv.ErrRange) {
-				numbers[c]++
-			}
-		}
-	}
-	cols := make([]tableColumn, len(header))
-	for c, name := range header {
-		name = strings.TrimSpace(name)
-		if c == 0 {
-			name = strings.TrimPrefix(name, "\ufeff")
-		}
-		cols[c] = tableColumn{name: name, numeric: nonEmpty[c] > 0 && 2*numbers[c] >= nonEmpty[c]}
-	}
-	return cols, nil
+	return 0
 }

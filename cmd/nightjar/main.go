@@ -11,6 +11,8 @@
 //	nightjar status DIR [--json]                        where a run stands
 //	nightjar score  DIR                                 (re)compute quality scores
 //	nightjar recolour DIR [--by COLUMN]                 re-draw the map coloured by any column
+//	nightjar place  REF --input FILE --out DIR          place new rows into a finished map
+//	nightjar merge  DIR                                 merge the parts of a sharded placement
 //	nightjar bench  [options]                           accuracy-versus-speed sweeps
 //
 // Exit codes: 0 success; 1 internal failure; 2 bad input or usage; 130 and 143
@@ -59,10 +61,12 @@ func commands() []command {
 	return []command{
 		{"embed", "map a feature table (Parquet, Arrow IPC or CSV) into a run directory", runEmbed},
 		{"demo", "generate the built-in fictional survey and map it", runDemo},
-		{"resume", "continue an interrupted run from its newest checkpoint", runResume},
+		{"resume", "continue an interrupted run from its newest checkpoint (or a stopped placement)", runResumeAny},
 		{"status", "show where a run stands: phase, iteration, KL, time left", runStatus},
 		{"score", "(re)compute quality scores of a finished run", runScore},
 		{"recolour", "re-draw map.png and map.html of a finished run coloured by any column", runRecolour},
+		{"place", "place the rows of a new table into a finished map, in one go or in shards", runPlace},
+		{"merge", "merge the parts of a sharded placement into one", runMerge},
 		{"bench", "sweep settings over a dataset and record time, memory and quality", runBench},
 		{"version", "print the version", func(_ context.Context, _ []string, stdout, _ io.Writer) error {
 			fmt.Fprintln(stdout, "nightjar", nightjar.Version)

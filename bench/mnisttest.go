@@ -1,0 +1,52 @@
+package bench
+
+import (
+	"fmt"
+
+	"nightjar/ingest"
+	"nightjar/internal/core"
+)
+
+// MNISTTest loads the first n (all when n ≤ 0) of the 10,000 MNIST test
+// digits (LeCun, Cortes & Burges: the files t10k-images-idx3-ubyte and
+// t10k-labels-idx1-ubyte in dir, gzipped or not) as MNIST does for the
+// training digits: 784 features "px000".."px783" holding grey / 255, the
+// label column "digit", and ids 60001… continuing those of MNIST, so that a
+// test digit has the same id in both tables. It returns an error if a file
+// is missing or malformed or n exceeds the 10,000 test digits.
+func MNISTTest(dir string, n int) (*ingest.Table, error) {
+	idims, img, lab, err := readMNISTPart(dir, mnistTestImages, mnistTestLabels)
+	if err != nil {
+		return nil, err
+	}
+	rows, d := idims[0], idims[1]*idims[2]
+	if n > rows {
+		return nil, fmt.Errorf("reading MNIST test digits in %s: asked for %d rows, the files hold %d", dir, n, rows)
+	}
+	if n > 0 {
+		rows = n
+	}
+	pixels := make([]float32, rows*d)
+	for i, v := range img[:rows*d] {
+		pixels[i] = float32(v) / 255
+	}
+	labels := make([]string, rows)
+	ids := make([]int64, rows)
+	for i, l := range lab[:rows] {
+		labels[i] = fmt.Sprint(l)
+		ids[i] = int64(60000 + i + 1)
+	}
+	features := make([]string, d)
+	for f := range features {
+		features[f] = fmt.Sprintf("px%03d", f)
+	}
+	mat := core.Matrix{N: rows, D: d, Data: pixels}
+	return &ingest.Table{
+		Matrix:   mat,
+		Features: features,
+		ID:       &ingest.Column{Name: "id", Ints: ids},
+		Label:    &ingest.Column{Name: "digit", Strings: labels},
+		Hash:     ingest.Fingerprint(mat),
+		Format:   "idx",
+	}, nil
+}
