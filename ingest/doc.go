@@ -77,12 +77,14 @@
 // the Rayleigh–Ritz step takes B = [Q_0 … Q_t], T = Bᵀ S B (from the stored
 // products, symmetrised), its eigenpairs (θ_j, w_j) by gonum's mat.EigenSym, and
 // the Ritz vectors v_j = B w_j: the components are the first k, the variances
-// their θ_j. The iteration stops when Σ_{j≤k} θ_j grows by less than 1e-4
+// their θ_j. The iteration stops when Σ_{j≤k} θ_j grows by less than 3e-4
 // (relative) in a pass and every well separated Ritz pair (θ_j at least 1.1
 // times θ_{j+1} and 1.1 times below θ_{j−1}) has ‖S v_j − θ_j v_j‖ / gap_j ≤
 // 5e-4, a bound on the sine of its angle to the exact component (Saad,
 // "Numerical Methods for Large Eigenvalue Problems", 2011, theorem 3.6, with
-// the gap to the neighbouring Ritz values), after 3 to 12 passes. Each pass
+// the gap to the neighbouring Ritz values) — or that bound no longer halves
+// from one pass to the next (the floor the float32 products leave) — after
+// 3 to 12 passes. Each pass
 // costs O(N·D·ℓ) (two float32 matrix products per block of rows, by gonum's
 // sgemm), the basis O(t·ℓ·D) memory. Checked against gonum's exact PCA in
 // randpca_test.go.

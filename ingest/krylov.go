@@ -90,6 +90,7 @@ func (s *subspace) rayleighRitz() error {
 		s.angle = max(s.angle, math.Sqrt(r)/gap)
 	}
 	s.captured = append(s.captured, captured)
+	s.angles = append(s.angles, s.angle)
 	return nil
 }
 
@@ -102,7 +103,8 @@ func (s *subspace) converged() bool {
 		return false
 	}
 	last, prev := s.captured[m-1], s.captured[m-2]
-	return last <= 0 || (math.Abs(last-prev) <= ritzTol*last && s.angle <= angleTol)
+	floor := s.angles[m-1] > s.angles[m-2]/2 // no longer halving: at the precision's floor
+	return last <= 0 || (math.Abs(last-prev) <= ritzTol*last && (s.angle <= angleTol || floor))
 }
 
 // orthogonalise returns the rows of z (each of length D) made orthonormal to

@@ -24,10 +24,12 @@ const RandomizedAbove = 500
 // ritzTol (relative) in a pass and every well separated one of them (ratio
 // above separated to both neighbours) has a residual bound on its angle below
 // angleTol, after at least minPasses and at most maxPasses passes over the
-// rows, or when the blocks span the whole space or an invariant subspace.
+// rows, or when the blocks span the whole space or an invariant subspace. An
+// angle bound that no longer halves in a pass has reached the floor that the
+// float32 products leave, and counts as converged.
 const (
 	minOversample = 10
-	ritzTol       = 1e-4
+	ritzTol       = 3e-4
 	separated     = 1.1
 	angleTol      = 5e-4
 	minPasses     = 3
@@ -73,6 +75,7 @@ type subspace struct {
 	vecs     []float64 // the first k Ritz vectors, k×D
 	captured []float64 // Σ of the first k Ritz values after each Rayleigh–Ritz step
 	angle    float64   // the largest residual bound of a well separated Ritz vector's angle
+	angles   []float64 // its value after each Rayleigh–Ritz step
 	complete bool      // the blocks span the whole space or an invariant subspace
 }
 
