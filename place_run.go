@@ -271,30 +271,27 @@ func (j *placeJob) prepare(resumed bool) error {
 
 	t1 := time.Now()
 	bar := phaseBar(j.obs, "reading new rows", -1)
-	t, err := readNewRows(&j.s, ref, j.rt.Threads, bar)
+	sr, err := readShard(&j.s, ref, j.rt.Threads, bar)
 	j.obs.Done()
 	if err != nil {
 		return err
 	}
-	fp := fingerprint(j.s.Input, t.Hash)
+	t, fp := sr.t, sr.fp
 	if rec := j.st.Input; rec.ValuesHash != "" {
 		if same, why := rec.Same(fp); !same {
 			return &RunDirError{Dir: j.dir, Msg: fmt.Sprintf("the new table %s changed since the placement began (%s); place it into another directory", j.s.Input, why)}
 		}
 	}
-	n := t.N
-	first, end := int(int64(j.s.Shard)*int64(n)/int64(j.s.Shards)), int(int64(j.s.Shard+1)*int64(n)/int64(j.s.Shards))
+	n, first, end := sr.n, sr.first, sr.first+t.N
 	j.st.Input, j.st.TableRows, j.st.First, j.st.End = fp, n, first, end
 	j.st.IDColumn, j.st.LabelColumn = j.s.ID, j.s.Label
 	j.setStatus(StatusRunning)
 	j.rep.Input, j.rep.Format, j.rep.TableRows, j.rep.Skipped, j.rep.Rows = j.s.Input, t.Format, n, t.Skipped, end-first
 	j.rep.Parameters = j.s
-	// Keep only this placement's rows.
-	x := Matrix{N: end - first, D: t.D, Data: append([]float32(nil), t.Data[first*t.D:end*t.D]...)}
-	if j.x, err = metricMatrix(x, ref.metric()); err != nil {
+	if j.x, err = metricMatrix(t.Matrix, ref.metric()); err != nil {
 		return fmt.Errorf("%s: %w (cosine distance needs a non-zero row)", j.s.Input, err)
 	}
-	j.id, j.label = sliceColumn(t.ID, first, end), sliceColumn(t.Label, first, end)
+	j.id, j.label = t.ID, t.Label
 	j.obs.Note(fmt.Sprintf("read %d new rows × %d features from %s; placing rows %d–%d into %s (%d rows)",
 		n, t.D, j.s.Input, first+1, end, j.s.Reference, ref.feat.X.N))
 	j.rep.Phases["read"] = time.Since(t1).Seconds()
@@ -365,7 +362,13 @@ func (j *placeJob) setupSearch() error {
 }
 
 func (j *placeJob) placeParams(m gradient.Method) gradient.PlaceParams {
-	return gradient.PlaceParams{Dims: j.ref.s.Dims, Dof: j.ref.s.Dof, Method: m, Theta: j.s.Theta,
-		Steps: j.s.Steps, LearningRate: j.s.LearningRate, Momentum: j.s.Momentum,
-		Exaggeration: j.s.Exaggeration, ExaggerationSteps: j.s.ExaggerationSteps, Gains: true, Threads: j.rt.Threads}
+	return placeParams(j.ref.s, j.s, m, j.rt.Threads)
+}
+
+// placeParams returns the optimiser's parameters of a placement with
+// settings s into a reference made with settings ref.
+func placeParams(ref Settings, s PlaceSettings, m gradient.Method, threads int) gradient.PlaceParams {
+	return gradient.PlaceParams{Dims: ref.Dims, Dof: ref.Dof, Method: m, Theta: s.Theta,
+		Steps: s.Steps, LearningRate: s.LearningRate, Momentum: s.Momentum,
+		Exaggeration: s.Exaggeration, ExaggerationSteps: s.ExaggerationSteps, Gains: true, Threads: threads}
 }

@@ -63,37 +63,36 @@ func referenceRun(t testing.TB, dir string, tab *ingest.Table, s Settings) *refe
 	return ref
 }
 
-// newHeldOut prepares the placement of the rows of tab into ref.
+// newHeldOut prepares the placement of the rows of tab (nil for none) into
+// ref, and of loo of the reference's own rows left out one at a time.
 func newHeldOut(t testing.TB, name string, ref *reference, tab *ingest.Table, loo int) *heldOut {
 	t.Helper()
-	ps := DefaultPlaceSettings()
-	ps.Input = "(held out)"
-	ps.Reference = ref.dir
 	h := &heldOut{name: name, ref: ref, k: ref.k()}
-	x := tab.Matrix
-	if ref.feat.PCA != nil {
-		sc := ref.feat.PCA.Project(x, 2)
-		x = Matrix{N: x.N, D: ref.feat.PCA.K, Data: make([]float32, len(sc))}
-		for i, v := range sc {
-			x.Data[i] = float32(v)
-		}
-	}
-	var err error
-	if h.x, err = metricMatrix(x, ref.metric()); err != nil {
-		t.Fatal(err)
-	}
-	h.label = labelStrings(tab.Label)
 	rows, err := newRefRows(ref.feat.X, ref.metric(), true)
 	if err != nil {
 		t.Fatal(err)
 	}
-	var d2 []float32
-	if h.idx, d2, err = rows.exact(h.x, h.k, nil, 2, nil); err != nil {
-		t.Fatal(err)
-	}
-	h.p, h.y0 = startOf(ref, h.idx, d2, h.k)
 	if h.exact, err = gradient.NewField(ref.y, gradient.PlaceParams{Dims: ref.s.Dims, Dof: ref.s.Dof, Method: gradient.Exact, Exaggeration: 1, Threads: 2}); err != nil {
 		t.Fatal(err)
+	}
+	var d2 []float32
+	if tab != nil {
+		x := tab.Matrix
+		if ref.feat.PCA != nil {
+			sc := ref.feat.PCA.Project(x, 2)
+			x = Matrix{N: x.N, D: ref.feat.PCA.K, Data: make([]float32, len(sc))}
+			for i, v := range sc {
+				x.Data[i] = float32(v)
+			}
+		}
+		if h.x, err = metricMatrix(x, ref.metric()); err != nil {
+			t.Fatal(err)
+		}
+		h.label = labelStrings(tab.Label)
+		if h.idx, d2, err = rows.exact(h.x, h.k, nil, 2, nil); err != nil {
+			t.Fatal(err)
+		}
+		h.p, h.y0 = startOf(ref, h.idx, d2, h.k)
 	}
 	if loo > 0 {
 		h.looRows = looSample(ref.feat.X.N, loo)
