@@ -117,7 +117,8 @@ func DrawPrediction(w io.Writer, title, quality string, pts []PredictionPoint) e
 }
 
 // fixPredictionRanges starts the time axis at 0 with room for the labels
-// and keeps the quality axis at least 0.02 wide, as DrawTradeoff does.
+// and keeps the quality axis at least 0.02 wide, as DrawTradeoff does, and
+// not above 1.
 func fixPredictionRanges(p *plot.Plot, pts predXY) {
 	lo, hi, right := math.Inf(1), math.Inf(-1), 0.0
 	for i, pt := range pts {
@@ -130,6 +131,8 @@ func fixPredictionRanges(p *plot.Plot, pts predXY) {
 		lo, hi = mid-0.01, mid+0.01
 	}
 	pad := (hi - lo) * 0.1
+	// Scores are at most 1: a window that would pass it slides down.
+	shift := math.Max(0, hi+pad-1)
 	p.X.Min, p.X.Max = 0, right*1.25
-	p.Y.Min, p.Y.Max = lo-pad, hi+pad
+	p.Y.Min, p.Y.Max = lo-pad-shift, hi+pad-shift
 }
