@@ -89,11 +89,11 @@ func MergePlacement(ctx context.Context, outDir string, rt Runtime, obs Observer
 		own = merged.label.Strings
 	}
 	rep.Scores = placeScores(ref, merged.y, vote, merged.share, own, rt.ScoreSample, first.Settings.Seed, rt.Threads)
-	res := &PlaceResult{Dir: outDir, Placed: filepath.Join(outDir, FilePlaced), MapImage: filepath.Join(outDir, FileMap), Report: rep}
+	res := &PlaceResult{Dir: outDir, Placed: filepath.Join(outDir, FilePlaced), MapImage: filepath.Join(outDir, FileMap), MapPage: filepath.Join(outDir, FileMapPage), Report: rep}
 	if err := merged.write(res.Placed); err != nil {
 		return nil, err
 	}
-	if err := drawPlaced(res.MapImage, ref, merged, obs); err != nil {
+	if err := drawPlaced(outDir, ref, merged, first.Settings.Input, obs); err != nil {
 		return nil, err
 	}
 	rep.Phases["merge"] = time.Since(t0).Seconds()

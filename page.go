@@ -83,17 +83,34 @@ func (v *MapView) check() error {
 	return nil
 }
 
-// colouring returns the figure's colouring of v.
+// colouring returns the figure's colouring of v. The reference rows of a
+// placement (Placed false) take no part in it: they are drawn in the
+// reference grey, counted apart, and hold code 0 or NaN.
 func (v *MapView) colouring() figure.Colouring {
-	if v.Values != nil {
-		return figure.Numbers(v.By, v.Values)
-	}
-	if v.Labels == nil || v.NoValue == nil {
+	if v.Placed == nil && v.NoValue == nil || v.Labels == nil && v.Values == nil {
+		if v.Values != nil {
+			return figure.Numbers(v.By, v.Values)
+		}
 		return figure.Categories(v.By, v.Labels)
+	}
+	isRef := func(i int) bool { return v.Placed != nil && !v.Placed[i] }
+	if v.Values != nil {
+		kept := make([]float64, 0, len(v.Values))
+		all := make([]float64, len(v.Values))
+		for i, x := range v.Values {
+			all[i] = math.NaN()
+			if !isRef(i) {
+				kept = append(kept, x)
+				all[i] = x
+			}
+		}
+		c := figure.Numbers(v.By, kept)
+		c.Values = all
+		return c
 	}
 	kept := make([]string, 0, len(v.Labels))
 	for i, l := range v.Labels {
-		if !v.NoValue[i] {
+		if !isRef(i) && (v.NoValue == nil || !v.NoValue[i]) {
 			kept = append(kept, l)
 		}
 	}
@@ -102,8 +119,12 @@ func (v *MapView) colouring() figure.Colouring {
 	codes := make([]int32, len(v.Labels))
 	k := 0
 	for i := range codes {
-		codes[i] = -1
-		if !v.NoValue[i] {
+		switch {
+		case isRef(i):
+			codes[i] = 0
+		case v.NoValue != nil && v.NoValue[i]:
+			codes[i] = -1
+		default:
 			codes[i] = c.Codes[k]
 			k++
 		}

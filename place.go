@@ -150,6 +150,7 @@ type PlaceResult struct {
 	Dir      string // the placement's directory (a shard's working directory for a shard)
 	Placed   string // placed.parquet, or the shard's part
 	MapImage string // map.png ("" for a shard: the merge draws it)
+	MapPage  string // map.html ("" for a shard)
 	Report   *PlaceReport
 	// AlreadyFinished is set when the directory held the finished placement.
 	AlreadyFinished bool

@@ -164,3 +164,24 @@ func placeFloats(s string) []float64 {
 
 // logf prints a measurement line at once (benchmark logs are cut short).
 func placeLogf(format string, args ...any) { fmt.Fprintf(os.Stderr, format+"\n", args...) }
+
+// TestWriteDemoRows writes rows [from, rows) of the demo survey of
+// NIGHTJAR_DEMO_ROWS rows (seed NIGHTJAR_DEMO_SEED, default 1) to the
+// Parquet file NIGHTJAR_DEMO_FILE: new rows of the survey that 'nightjar
+// demo --rows FROM' maps (the same model; every row is drawn afresh), for
+// the benchmark of placing a million rows into the million-row demo map
+// (bench/RESULTS.md, "Placing new rows"). A preparation, not a check.
+//
+//	NIGHTJAR_DEMO_FILE=new.parquet NIGHTJAR_DEMO_ROWS=2000000 NIGHTJAR_DEMO_FROM=1000000 go test . -run WriteDemoRows -timeout 10m
+func TestWriteDemoRows(t *testing.T) {
+	path := os.Getenv("NIGHTJAR_DEMO_FILE")
+	if path == "" {
+		t.Skip("a preparation: set NIGHTJAR_DEMO_FILE, NIGHTJAR_DEMO_ROWS and NIGHTJAR_DEMO_FROM")
+	}
+	n, from := placeEnvInt("NIGHTJAR_DEMO_ROWS", 0), placeEnvInt("NIGHTJAR_DEMO_FROM", 0)
+	if n == 0 || from >= n {
+		t.Fatalf("NIGHTJAR_DEMO_ROWS = %d and NIGHTJAR_DEMO_FROM = %d: want 0 ≤ FROM < ROWS", n, from)
+	}
+	all := bench.Demo(n, uint64(placeEnvInt("NIGHTJAR_DEMO_SEED", 1)), 2)
+	writePlaceTable(t, path, tableRows(all, from, n))
+}

@@ -2,12 +2,10 @@ package nightjar
 
 import (
 	"fmt"
-	"io"
 	"os"
 	"path/filepath"
 	"time"
 
-	"nightjar/checkpoint"
 	"nightjar/internal/figure"
 )
 
@@ -47,8 +45,8 @@ func (j *placeJob) finish(all *placed, tablePath string) (*PlaceResult, error) {
 	}
 	j.rep.Scores = placeScores(j.ref, all.y, all.vote, all.share, own, j.rt.ScoreSample, j.s.Seed, j.rt.Threads)
 	if j.s.Shards == 1 {
-		res.MapImage = filepath.Join(j.out, FileMap)
-		if err := drawPlaced(res.MapImage, j.ref, tab, j.obs); err != nil {
+		res.MapImage, res.MapPage = filepath.Join(j.out, FileMap), filepath.Join(j.out, FileMapPage)
+		if err := drawPlaced(j.out, j.ref, tab, j.s.Input, j.obs); err != nil {
 			return nil, err
 		}
 	}
@@ -88,30 +86,54 @@ func (j *placeJob) table(all *placed) *placedTable {
 	return t
 }
 
-// drawPlaced draws map.png: the reference in grey, the placed rows on top
-// coloured by their own label, else by their voted label.
-func drawPlaced(path string, ref *reference, t *placedTable, obs Observer) error {
-	labels, heading := t.voted, "voted label"
+// drawPlaced writes map.png and map.html of a placement into dir: the
+// reference rows in a light neutral grey, the placed rows on top coloured
+// by their own label, else by the label their reference neighbours voted.
+func drawPlaced(dir string, ref *reference, t *placedTable, input string, obs Observer) error {
+	return WriteMaps(dir, placedView(ref, t, input), obs)
+}
+
+// placedView is the MapView of a placement: the reference rows first, then
+// the placed rows, each with its id (a reference without ids shows its row
+// number), coloured as drawPlaced says.
+func placedView(ref *reference, t *placedTable, input string) MapView {
+	dims := ref.s.Dims
+	nr, np := len(ref.y)/dims, t.n()
+	v := MapView{Map: make([]float64, 0, len(ref.y)+len(t.y)), Dims: dims, Placed: make([]bool, nr+np), Seed: ref.s.Seed,
+		Title:   fmt.Sprintf("nightjar: %s placed into the map of %s", filepath.Base(input), filepath.Base(ref.dir)),
+		Caption: fmt.Sprintf("%s rows placed into %s reference rows (grey)", figure.Thousands(np), figure.Thousands(nr))}
+	v.Map = append(append(v.Map, ref.y...), t.y...)
+	for i := nr; i < nr+np; i++ {
+		v.Placed[i] = true
+	}
+	v.IDs = joinIDs(ref.ids, t.id, nr)
+	own, by := t.voted, colVoted
 	if t.label != nil {
-		labels, heading = t.label.Strings, t.label.Name
+		own, by = t.label.Strings, t.label.Name
 	}
-	m, err := figure.PlacedMap(ref.y, t.y, ref.s.Dims, heading, labels)
-	if err != nil {
-		return err
+	if own != nil {
+		v.By, v.Labels = by, append(make([]string, nr, nr+np), own...)
 	}
-	opt := figure.MapOptions{Title: "nightjar: rows placed into a finished map",
-		Caption: fmt.Sprintf("%d rows placed into %d reference rows (grey)", t.n(), len(ref.y)/ref.s.Dims)}
-	var lacking []rune
-	err = checkpoint.AtomicWrite(path, func(w io.Writer) error {
-		var err error
-		lacking, err = figure.DrawMap(w, m, opt)
-		return err
-	})
-	if err != nil {
-		return fmt.Errorf("drawing %s: %w", path, err)
+	return v
+}
+
+// joinIDs returns the ids of nr reference rows (a nil column: "row N" for
+// the N-th) followed by the placed rows' ids, as integers when both are,
+// else as text.
+func joinIDs(ref, placed *Column, nr int) *Column {
+	if ref != nil && ref.Ints != nil && placed.Ints != nil {
+		return &Column{Name: placed.Name, Ints: append(append(make([]int64, 0, nr+placed.Len()), ref.Ints...), placed.Ints...)}
 	}
-	if len(lacking) > 0 {
-		obs.Warn(fmt.Sprintf("%s: the font lacks %q, drawn as boxes", path, string(lacking)))
+	out := &Column{Name: placed.Name, Strings: make([]string, 0, nr+placed.Len())}
+	for i := range nr {
+		if ref != nil {
+			out.Strings = append(out.Strings, ref.String(i))
+		} else {
+			out.Strings = append(out.Strings, fmt.Sprintf("row %d", i+1))
+		}
 	}
-	return nil
+	for i := range placed.Len() {
+		out.Strings = append(out.Strings, placed.String(i))
+	}
+	return out
 }

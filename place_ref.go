@@ -24,6 +24,7 @@ type reference struct {
 	feat  *refFeatures
 	y     []float64 // the map, N×dims, rows in the order of feat.X
 	label *Column   // the reference's labels, nil without
+	ids   *Column   // the reference's ids, nil without an id column
 	// classes are the distinct labels, sorted; class[i] is row i's.
 	classes []string
 	class   []int32
@@ -77,7 +78,7 @@ func loadReferenceMap(dir string, threads int) (*reference, error) {
 		return nil, err
 	}
 	ref := &reference{dir: dir, run: run, s: s}
-	emb, err := ingest.Read(run.Path(FileEmbedding), ingest.Options{Features: []string{"map_1", "map_2", "map_3"}[:s.Dims], Label: s.Label, Threads: threads})
+	emb, err := ingest.Read(run.Path(FileEmbedding), ingest.Options{Features: []string{"map_1", "map_2", "map_3"}[:s.Dims], ID: s.ID, Label: s.Label, Threads: threads})
 	if err != nil {
 		return nil, &RunDirError{Dir: dir, Msg: "cannot read the reference's map: " + errorText(err)}
 	}
@@ -85,7 +86,7 @@ func loadReferenceMap(dir string, threads int) (*reference, error) {
 	for i, v := range emb.Data {
 		ref.y[i] = float64(v)
 	}
-	ref.label = emb.Label
+	ref.label, ref.ids = emb.Label, emb.ID
 	if emb.Label != nil {
 		ref.classes, ref.class = classesOf(emb.Label)
 	}

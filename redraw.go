@@ -53,13 +53,24 @@ type RedrawResult struct {
 // dropped rows with --skip-invalid is matched correctly); or from a second
 // table joined on the id. Rows without a value are drawn grey and counted.
 // Writing into the run directory takes the run's writer lock.
+//
+// For a placement (dir holds placement.json), the reference stays grey and
+// the placed rows are coloured: by a column of placed.parquet
+// (voted_label, vote_share, nearest_distance, the new table's label), of
+// the second table joined on the id, or of the placement's new table
+// joined on the id.
 func Redraw(ctx context.Context, dir string, opt RedrawOptions, obs Observer) (*RedrawResult, error) {
 	obs = observerOrQuiet(obs)
 	if err := opt.check(); err != nil {
 		return nil, err
 	}
+	if IsPlacement(dir) {
+		// Reading the reference's map takes two goroutines, as the CLI's
+		// default; the result does not depend on it.
+		return redrawPlacement(ctx, dir, opt, 2, obs)
+	}
 	if _, err := os.Stat(filepath.Join(dir, checkpoint.ManifestName)); err != nil {
-		return nil, &RunDirError{Dir: dir, Msg: "is not a run directory (no " + checkpoint.ManifestName + ")"}
+		return nil, &RunDirError{Dir: dir, Msg: "is not a run directory or a placement (no " + checkpoint.ManifestName + " or " + FileStateDir + ")"}
 	}
 	out := opt.Out
 	if out == "" || sameDir(out, dir) {

@@ -160,7 +160,9 @@
     const m = S.meta, lines = [];
     lines.push(['nj-tip-id', S.d.idText ? idOf(i) : 'row ' + count(inputRow(i))]);
     const head = m.heading || 'label';
-    if (S.d.codes) lines.push(['', head + ': ' + (S.d.codes[i] ? m.groups[S.d.codes[i] - 1].label : 'no value')]);
+    // A reference row of a placement is not coloured: it has no value here.
+    if (isRef(i)) { /* no label line */ }
+    else if (S.d.codes) lines.push(['', head + ': ' + (S.d.codes[i] ? m.groups[S.d.codes[i] - 1].label : 'no value')]);
     else if (S.d.values) lines.push(['', head + ': ' + num(S.d.values[i])]);
     if (S.d.placed) lines.push(['nj-tip-soft', S.d.placed[i] ? 'placed row' : 'reference row']);
     lines.push(['nj-tip-soft', 'map: ' + num(S.d.x[i]) + ', ' + num(S.d.y[i])]);
