@@ -64,7 +64,7 @@ func commands() []command {
 		{"resume", "continue an interrupted run from its newest checkpoint (or a stopped placement)", runResumeAny},
 		{"status", "show where a run stands: phase, iteration, KL, time left", runStatus},
 		{"score", "(re)compute quality scores of a finished run", runScore},
-		{"recolour", "re-draw map.png and map.html of a finished run coloured by any column", runRecolour},
+		{"recolour", "re-draw map.png and map.html of a finished run or placement coloured by any column", runRecolour},
 		{"place", "place the rows of a new table into a finished map, in one go or in shards", runPlace},
 		{"merge", "merge the parts of a sharded placement into one", runMerge},
 		{"bench", "sweep settings over a dataset and record time, memory and quality", runBench},

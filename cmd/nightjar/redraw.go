@@ -11,7 +11,7 @@ import (
 // runRecolour re-draws map.png and map.html of a finished run, coloured by
 // another column, without re-running it.
 func runRecolour(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("recolour", "re-draw map.png and map.html of a finished run coloured by any column, without re-running it",
+	fs := newFlags("recolour", "re-draw map.png and map.html of a finished run or placement coloured by any column, without re-running it",
 		"nightjar recolour runs/cells --by donor --table cells_meta.csv --on barcode", stderr)
 	var opt nightjar.RedrawOptions
 	fs.StringVar(&opt.By, "by", "", "column that colours the points (default: the run's label)")
@@ -28,7 +28,7 @@ func runRecolour(ctx context.Context, args []string, stdout, stderr io.Writer) e
 		return err
 	}
 	if len(pos) != 1 {
-		return usagef("recolour: name the run directory (nightjar recolour DIR --by COLUMN)")
+		return usagef("recolour: name the run or placement directory (nightjar recolour DIR --by COLUMN)")
 	}
 	res, err := nightjar.Redraw(ctx, pos[0], opt, newUI(stderr, *quiet))
 	if err != nil {
