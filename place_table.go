@@ -152,6 +152,47 @@ func (t *placedTable) fill(rb *array.RecordBuilder, lo, hi int) {
 // readPlacedTable reads a placed table written by write, knowing its id and
 // label column names (label "" when it has none) and whether it has votes.
 func readPlacedTable(path, id, label string, dims int, votes bool) (*placedTable, error) {
+	tab, err := readParquetTable(path)
+	if err != nil {
+		return nil, err
+	}
+	defer tab.Release()
+	c := placedColumns{path: path, tab: tab}
+	t := &placedTable{dims: dims}
+	if t.id, err = c.column(id); err != nil {
+		return nil, err
+	}
+	n := t.id.Len()
+	if label != "" {
+		if t.label, err = c.column(label); err != nil || t.label.Strings == nil {
+			return nil, fmt.Errorf("%s: label column %q is not text", path, label)
+		}
+	}
+	t.y = make([]float64, n*dims)
+	for k := range dims {
+		if err := c.floats(fmt.Sprintf("map_%d", k+1), t.y, dims, k); err != nil {
+			return nil, err
+		}
+	}
+	if votes {
+		v, err := c.column(colVoted)
+		if err != nil || v.Strings == nil {
+			return nil, fmt.Errorf("%s: column %q is not text", path, colVoted)
+		}
+		t.voted, t.share = v.Strings, make([]float64, n)
+		if err := c.floats(colShare, t.share, 1, 0); err != nil {
+			return nil, err
+		}
+	}
+	t.nearest = make([]float64, n)
+	if err := c.floats(colNearest, t.nearest, 1, 0); err != nil {
+		return nil, err
+	}
+	return t, nil
+}
+
+// readParquetTable reads the whole Parquet file at path into memory.
+func readParquetTable(path string) (arrow.Table, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, err
@@ -170,74 +211,54 @@ func readPlacedTable(path, id, label string, dims int, votes bool) (*placedTable
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", path, err)
 	}
-	defer tab.Release()
-	t := &placedTable{dims: dims}
-	col := func(name string) (*arrow.Chunked, error) {
-		idx := tab.Schema().FieldIndices(name)
-		if len(idx) != 1 {
-			return nil, fmt.Errorf("%s: no column %q", path, name)
-		}
-		return tab.Column(idx[0]).Data(), nil
+	return tab, nil
+}
+
+// placedColumns reads the columns of a placed table by name.
+type placedColumns struct {
+	path string
+	tab  arrow.Table
+}
+
+func (c placedColumns) chunks(name string) (*arrow.Chunked, error) {
+	idx := c.tab.Schema().FieldIndices(name)
+	if len(idx) != 1 {
+		return nil, fmt.Errorf("%s: no column %q", c.path, name)
 	}
-	ch, err := col(id)
+	return c.tab.Column(idx[0]).Data(), nil
+}
+
+// column copies an int64 or text column without nulls.
+func (c placedColumns) column(name string) (*Column, error) {
+	ch, err := c.chunks(name)
 	if err != nil {
 		return nil, err
 	}
-	if t.id, err = columnOf(id, ch); err != nil {
-		return nil, fmt.Errorf("%s: %w", path, err)
+	col, err := columnOf(name, ch)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", c.path, err)
 	}
-	n := t.id.Len()
-	if label != "" {
-		if ch, err = col(label); err != nil {
-			return nil, err
-		}
-		if t.label, err = columnOf(label, ch); err != nil || t.label.Strings == nil {
-			return nil, fmt.Errorf("%s: label column %q is not text", path, label)
-		}
+	return col, nil
+}
+
+// floats copies a float64 column without nulls into dst[i*stride+off].
+func (c placedColumns) floats(name string, dst []float64, stride, off int) error {
+	ch, err := c.chunks(name)
+	if err != nil {
+		return err
 	}
-	floats := func(name string, dst []float64, stride, off int) error {
-		ch, err := col(name)
-		if err != nil {
-			return err
+	i := 0
+	for _, a := range ch.Chunks() {
+		fa, ok := a.(*array.Float64)
+		if !ok || fa.NullN() > 0 {
+			return fmt.Errorf("%s: column %q is not float64 without nulls", c.path, name)
 		}
-		i := 0
-		for _, a := range ch.Chunks() {
-			fa, ok := a.(*array.Float64)
-			if !ok || fa.NullN() > 0 {
-				return fmt.Errorf("%s: column %q is not float64 without nulls", path, name)
-			}
-			for _, v := range fa.Float64Values() {
-				dst[i*stride+off] = v
-				i++
-			}
-		}
-		return nil
-	}
-	t.y = make([]float64, n*dims)
-	for k := range dims {
-		if err := floats(fmt.Sprintf("map_%d", k+1), t.y, dims, k); err != nil {
-			return nil, err
+		for _, v := range fa.Float64Values() {
+			dst[i*stride+off] = v
+			i++
 		}
 	}
-	if votes {
-		if ch, err = col(colVoted); err != nil {
-			return nil, err
-		}
-		v, err := columnOf(colVoted, ch)
-		if err != nil || v.Strings == nil {
-			return nil, fmt.Errorf("%s: column %q is not text", path, colVoted)
-		}
-		t.voted = v.Strings
-		t.share = make([]float64, n)
-		if err := floats(colShare, t.share, 1, 0); err != nil {
-			return nil, err
-		}
-	}
-	t.nearest = make([]float64, n)
-	if err := floats(colNearest, t.nearest, 1, 0); err != nil {
-		return nil, err
-	}
-	return t, nil
+	return nil
 }
 
 // columnOf copies an int64 or text column without nulls.
