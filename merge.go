@@ -26,7 +26,7 @@ type shardPart struct {
 
 // MergePlacement merges the parts of a sharded placement in outDir (each
 // written by Place with the same settings and Shards, a different Shard)
-// into outDir/placed.parquet, map.png and report.json. It checks that every
+// into outDir/placed.parquet, map.png, map.html and report.json. It checks that every
 // part is there exactly once (outDir/parts holds part-IIIII-of-NNNNN.parquet
 // for each I in 0…N−1 and no other table), that every shard finished with
 // the same settings, reference and input, and that the parts' row ranges

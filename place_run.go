@@ -214,7 +214,7 @@ func runPlacement(ctx context.Context, out, dir string, st *placeState, rt Runti
 		res := &PlaceResult{Dir: dir, Placed: table, AlreadyFinished: true}
 		res.Report, _ = ReadPlaceReport(filepath.Join(dir, FileReport))
 		if j.s.Shards == 1 {
-			res.MapImage = filepath.Join(dir, FileMap)
+			res.MapImage, res.MapPage = filepath.Join(dir, FileMap), filepath.Join(dir, FileMapPage)
 		}
 		return res, nil
 	}

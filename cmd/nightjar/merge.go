@@ -10,7 +10,7 @@ import (
 func runMerge(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	r := defaultRuntime()
 	var quiet bool
-	fs := newFlags("merge", "check that every part of a sharded placement is there exactly once and write the merged placed.parquet, map.png and report.json",
+	fs := newFlags("merge", "check that every part of a sharded placement is there exactly once and write the merged placed.parquet, map.png, map.html and report.json",
 		"nightjar merge runs/week12", stderr)
 	addPlaceRuntime(fs, &r, &quiet)
 	pos, err := parseFlags(fs, args, 1)

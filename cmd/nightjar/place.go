@@ -18,7 +18,7 @@ func runPlace(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	r := defaultRuntime()
 	var quiet, prepare bool
 	fs := newFlags("place", "place the rows of a new table into the map of a finished run, the map held fixed "+
-		"(placed.parquet, map.png, report.json); with --shard/--shards, one part of them for 'nightjar merge'", placeExample, stderr, "input", "out")
+		"(placed.parquet, map.png, map.html, report.json); with --shard/--shards, one part of them for 'nightjar merge'", placeExample, stderr, "input", "out")
 	out := fs.String("out", "", "directory for the placement; a stopped placement continues when the same command is run again")
 	fs.BoolVar(&prepare, "prepare", false, "build the reference's neighbour index and save it in the reference directory (before starting shards), then stop")
 	addOptions(fs, nightjar.PlaceOptions(), nil, s.Set, s.Get)
@@ -79,7 +79,11 @@ func printPlaced(stdout io.Writer, res *nightjar.PlaceResult, shard bool, out st
 			res.Placed, rows, filepath.Join(res.Dir, nightjar.FileReport), out)
 		return
 	}
-	fmt.Fprintf(stdout, "placed:  %s (%d rows)\nmap:     %s\nreport:  %s\n", res.Placed, rows, res.MapImage, filepath.Join(res.Dir, nightjar.FileReport))
+	fmt.Fprintf(stdout, "placed:  %s (%d rows)\nmap:     %s\n", res.Placed, rows, res.MapImage)
+	if res.MapPage != "" {
+		fmt.Fprintf(stdout, "page:    %s (open it in a browser)\n", res.MapPage)
+	}
+	fmt.Fprintf(stdout, "report:  %s\n", filepath.Join(res.Dir, nightjar.FileReport))
 	if rep != nil {
 		printPlaceScores(stdout, rep)
 	}

@@ -59,7 +59,7 @@ func TestPlaceAndMergeCLI(t *testing.T) {
 	if code != 0 {
 		t.Fatalf("place: exit %d\n%s\n%s", code, out, errs)
 	}
-	for _, want := range []string{"placed:", "map:", "report:", "voted label = own label", "caution:"} {
+	for _, want := range []string{"placed:", "map:", "page:", "report:", "voted label = own label", "caution:"} {
 		if !strings.Contains(out, want) {
 			t.Errorf("place output lacks %q:\n%s", want, out)
 		}
