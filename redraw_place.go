@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"nightjar/checkpoint"
 )
@@ -107,7 +108,10 @@ func colourPlaced(v *MapView, t *placedTable, table string, st *placeState, opt 
 			}
 		case errors.As(err, &in) && in.Column == opt.By && st.IDColumn != "":
 			// Not a column of placed.parquet: the new table's, by id.
-			if cols, err = readSheet(st.Settings.Input, []string{opt.By, st.IDColumn}); err != nil {
+			var again *InputError
+			if cols, err = readSheet(st.Settings.Input, []string{opt.By, st.IDColumn}); errors.As(err, &again) && again.Column == opt.By {
+				return &InputError{File: table, Column: opt.By, Reason: "no such column here (" + strings.TrimPrefix(in.Reason, "no such column (") + ", nor in the new table " + st.Settings.Input}
+			} else if err != nil {
 				return err
 			}
 			values = cols[0]
