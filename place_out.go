@@ -107,6 +107,19 @@ func placedView(ref *reference, t *placedTable, input string) MapView {
 		v.Placed[i] = true
 	}
 	v.IDs = joinIDs(ref.ids, t.id, nr)
+	// The row numbers the page shows: a reference row's in the reference's
+	// input (as its run recorded them), a placed row's in placed.parquet.
+	v.Rows = make([]int64, 0, nr+np)
+	if rows, known, err := loadRows(ref.run, nr); err == nil && known && rows != nil {
+		v.Rows = append(v.Rows, rows...)
+	} else {
+		for i := range nr {
+			v.Rows = append(v.Rows, int64(i))
+		}
+	}
+	for i := range np {
+		v.Rows = append(v.Rows, int64(i))
+	}
 	own, by := t.voted, colVoted
 	if t.label != nil {
 		own, by = t.label.Strings, t.label.Name
