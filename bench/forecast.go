@@ -69,8 +69,9 @@ type Forecast struct {
 // range combines the phases' errors as the package doc says: the
 // uncertainties of the fitted laws are independent and add in quadrature,
 // while the noise of one run (the machine's load) is shared by all phases
-// and adds linearly. One refused phase refuses the wall time, naming the
-// phase.
+// and adds linearly. The bottom of either range is at least the least
+// wall time or memory of a run on the largest subsample (floors). One
+// refused phase refuses the wall time, naming the phase.
 func ForecastRun(laws []PhaseLaw, runs []RunSample, n int, lim Limits) Forecast {
 	fc := Forecast{Rows: n}
 	all := append(append([]PhaseLaw{}, laws...), PhaseLaw{Name: OtherPhase, Law: Linear})
@@ -115,16 +116,38 @@ func ForecastRun(laws []PhaseLaw, runs []RunSample, n int, lim Limits) Forecast 
 		extra += (high - times) * e.Value
 	}
 	fc.Seconds = Estimate{N: float64(n), Value: math.NaN(), Low: math.NaN(), High: math.NaN(), Refused: refused}
+	secFloor, memFloor := floors(runs, n)
 	if refused == "" {
 		half := lim.Z * math.Sqrt(fitVar+noiseSD*noiseSD)
-		fc.Seconds.Value, fc.Seconds.Low, fc.Seconds.High = total, math.Max(0, total-half), total+half+extra
+		fc.Seconds.Value, fc.Seconds.Low, fc.Seconds.High = total, math.Max(secFloor, total-half), total+half+extra
 	}
 	var ms []Sample
 	for _, r := range runs {
 		ms = append(ms, Sample{N: float64(r.N), Value: r.Memory})
 	}
 	fc.Memory = Predict(Linear, ms, float64(n), MemoryNoise, lim)
+	if fc.Memory.Refused == "" {
+		fc.Memory.Low = math.Max(fc.Memory.Low, memFloor)
+	}
 	return fc
+}
+
+// floors returns the least wall time and peak memory of the runs on the
+// largest subsample of at most n rows: a run on n rows, whose every law
+// grows with the rows, takes at least that much, which bounds the bottom
+// of a range that the fits and the noise would let reach 0.
+func floors(runs []RunSample, n int) (seconds, memory float64) {
+	largest := 0
+	for _, r := range runs {
+		switch {
+		case r.N > n:
+		case r.N > largest:
+			largest, seconds, memory = r.N, r.Seconds, r.Memory
+		case r.N == largest:
+			seconds, memory = math.Min(seconds, r.Seconds), math.Min(memory, r.Memory)
+		}
+	}
+	return seconds, memory
 }
 
 // fitVar is the variance of the prediction from the fits, and noiseSD the

@@ -128,3 +128,19 @@ func TestForecastBusyRuns(t *testing.T) {
 		t.Errorf("with the busy run marked: %v, true %.4g", fc.Seconds, truth)
 	}
 }
+
+// TestForecastFloor: noisy runs on subsamples cannot make the bottom of the
+// range fall below what the largest subsample itself took (a hand-worked
+// case: runs of 10 s, 20 s and 30 s and of 1, 2 and 3 GB at the largest
+// size give floors of 10 s and 1 GB; smaller subsamples and larger ones do
+// not count).
+func TestForecastFloor(t *testing.T) {
+	runs := []RunSample{{N: 100, Seconds: 50, Memory: 9e9}, {N: 1000, Seconds: 20, Memory: 2e9}, {N: 1000, Seconds: 10, Memory: 3e9},
+		{N: 1000, Seconds: 30, Memory: 1e9}, {N: 5000, Seconds: 1, Memory: 1}}
+	if s, m := floors(runs, 2000); s != 10 || m != 1e9 {
+		t.Errorf("floors %g s, %g bytes; want 10 s, 1e9 bytes", s, m)
+	}
+	if s, m := floors(runs, 50); s != 0 || m != 0 {
+		t.Errorf("no subsample at or below the size: floors %g, %g; want 0", s, m)
+	}
+}
