@@ -311,8 +311,12 @@ func (j *job) recordSearch(method knn.Method, st knn.Stats) {
 		for i, r := range st.PassRecall {
 			est[i] = fmt.Sprintf("%.4f", r)
 		}
-		j.obs.Note(fmt.Sprintf("neighbours: %d refinement passes; estimated recall at the start and after each: %s (goal %g)",
-			st.Passes, strings.Join(est, ", "), j.s.RecallGoal))
+		passes := fmt.Sprintf("%d refinement passes", st.Passes)
+		if st.Passes == 1 {
+			passes = "1 refinement pass"
+		}
+		j.obs.Note(fmt.Sprintf("neighbours: %s; estimated recall at the start and after each: %s (goal %g)",
+			passes, strings.Join(est, ", "), j.s.RecallGoal))
 	}
 }
 
