@@ -57,6 +57,7 @@ func PredictSetting(name string, s Settings, rows, threads int, runs []LadderRun
 		samples = append(samples, sm)
 		passes = append(passes, passRunOf(r.Report))
 	}
+	scoresFrom(laws, runs)
 	if rs.Neighbours != knn.ByExact.String() {
 		laws, samples, sp.Notes = splitPasses(laws, samples, runs, passes, rows, rs.RecallGoal)
 	}
@@ -239,4 +240,22 @@ func EstimateRun(s Settings, rows, threads int, runs []LadderRun, n int) float64
 		}
 	}
 	return bench.RoughSeconds(laws, samples, n)
+}
+
+// scoresFrom fits the scores phase only on the runs that scored the largest
+// sample any run scored: scoring ranks each of S sampled rows against all
+// N, so a run of fewer rows than the sample, which scores every row
+// (S = N), grows as N², not as the a + b·N of the runs beyond it.
+func scoresFrom(laws []bench.PhaseLaw, runs []LadderRun) {
+	most := 0
+	for _, r := range runs {
+		if r.Report != nil && r.Report.Quality != nil {
+			most = max(most, r.Report.Quality.Sample)
+		}
+	}
+	for i := range laws {
+		if laws[i].Name == PhaseScores {
+			laws[i].From = most
+		}
+	}
 }

@@ -237,3 +237,18 @@ func TestDurationAndBytes(t *testing.T) {
 		t.Errorf("Thousands = %q", got)
 	}
 }
+
+// TestScoresFrom: the scores phase is fitted on the runs that scored the
+// largest sample (a run of 700 rows with a sample of 2,000 scored all 700).
+func TestScoresFrom(t *testing.T) {
+	laws := []bench.PhaseLaw{{Name: PhaseOptimiser, Law: bench.Linear}, {Name: PhaseScores, Law: bench.Linear}}
+	var runs []LadderRun
+	for _, s := range []int{700, 2000, 2000} {
+		runs = append(runs, LadderRun{Report: &Report{Quality: &Quality{Sample: s}}})
+	}
+	runs = append(runs, LadderRun{}) // a failed run
+	scoresFrom(laws, runs)
+	if laws[0].From != 0 || laws[1].From != 2000 {
+		t.Errorf("From %d and %d, want 0 for the optimiser and 2000 for the scores", laws[0].From, laws[1].From)
+	}
+}

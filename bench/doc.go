@@ -37,7 +37,9 @@
 //
 //   - g = N for reading the table, the affinities (N rows of k neighbours,
 //     van der Maaten 2014, JMLR 15), the recall check and the scores (a fixed
-//     sample of rows, each against all N), writing the outputs, and the
+//     sample of rows, each against all N: a run of fewer rows than the
+//     sample scores every row and grows as N², so PhaseLaw.From leaves such
+//     runs out of the scores' fit), writing the outputs, and the
 //     FFT-interpolated optimiser: N points per iteration plus the grid, whose
 //     size follows the map's width, not N (Linderman et al. 2019, Nature
 //     Methods 16), so it sits in a;

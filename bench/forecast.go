@@ -14,6 +14,11 @@ type PhaseLaw struct {
 	// refinement) and Times the repetitions predicted for the full run;
 	// TimesHigh (≥ Times) multiplies the top of the range.
 	Times, TimesHigh float64
+	// From, when above 0, leaves the runs on fewer rows out of this
+	// phase's fit: their work is of another kind (a run of fewer rows than
+	// the scores' sample scores all its rows, so its scoring time grows as
+	// N², not N).
+	From int
 }
 
 // OtherPhase is the name Forecast gives the time a run spends outside the
@@ -81,6 +86,9 @@ func ForecastRun(laws []PhaseLaw, runs []RunSample, n int, lim Limits) Forecast 
 		var ss []Sample
 		used := false
 		for _, r := range runs {
+			if r.N < pl.From {
+				continue
+			}
 			v := r.Phases[pl.Name]
 			if pl.Name == OtherPhase {
 				v = r.Seconds

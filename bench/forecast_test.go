@@ -144,3 +144,31 @@ func TestForecastFloor(t *testing.T) {
 		t.Errorf("no subsample at or below the size: floors %g, %g; want 0", s, m)
 	}
 }
+
+// TestForecastFrom: a phase whose work changes kind below some size (the
+// scores of a run smaller than their sample, which score every row) is
+// refused when every run is fitted with a + b·N, and predicted when From
+// leaves the smaller runs out. Synthetic times: 0.05 + 1e-3·N from 2,000
+// rows up, 0.05 + 1e-3·N²/2,000 below (every row scored).
+func TestForecastFrom(t *testing.T) {
+	at := func(n float64) float64 {
+		if n < 2000 {
+			return 0.05 + 1e-3*n*n/2000
+		}
+		return 0.05 + 1e-3*n
+	}
+	var runs []RunSample
+	for _, n := range []int{300, 700, 2100, 7000, 20000} {
+		v := at(float64(n))
+		runs = append(runs, RunSample{N: n, Seconds: v, Memory: 1e8, Phases: map[string]float64{"scores": v}})
+	}
+	laws := []PhaseLaw{{Name: "scores", Law: Linear}}
+	if fc := ForecastRun(laws, runs, 70000, DefaultLimits); fc.Seconds.Refused == "" {
+		t.Errorf("every run fitted with a + b·N: %v, want refused", fc.Seconds)
+	}
+	laws[0].From = 2000
+	fc := ForecastRun(laws, runs, 70000, DefaultLimits)
+	if want := at(70000); fc.Seconds.Refused != "" || math.Abs(fc.Seconds.Value-want) > 0.01*want {
+		t.Errorf("runs from 2,000 rows: %v, want %.4g", fc.Seconds, want)
+	}
+}
