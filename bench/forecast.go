@@ -17,7 +17,7 @@ type PhaseLaw struct {
 	// From, when above 0, leaves the runs on fewer rows out of this
 	// phase's fit: their work is of another kind (a run of fewer rows than
 	// the scores' sample scores all its rows, so its scoring time grows as
-	// N², not N).
+	// N², not N). Runs at two sizes then suffice, their law unchecked.
 	From int
 }
 
@@ -103,7 +103,12 @@ func ForecastRun(laws []PhaseLaw, runs []RunSample, n int, lim Limits) Forecast 
 		if !used {
 			continue // a phase these runs do not have
 		}
-		e := Predict(pl.Law, ss, float64(n), TimeNoise, lim)
+		plim := lim
+		if pl.From > 0 {
+			// Fewer sizes reach From: two of them extend the law, unchecked.
+			plim.MinSizes = min(lim.MinSizes, 2)
+		}
+		e := Predict(pl.Law, ss, float64(n), TimeNoise, plim)
 		times, high := 1.0, 1.0
 		if pl.Times > 0 {
 			times, high = pl.Times, math.Max(pl.Times, pl.TimesHigh)

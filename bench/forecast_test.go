@@ -171,4 +171,9 @@ func TestForecastFrom(t *testing.T) {
 	if want := at(70000); fc.Seconds.Refused != "" || math.Abs(fc.Seconds.Value-want) > 0.01*want {
 		t.Errorf("runs from 2,000 rows: %v, want %.4g", fc.Seconds, want)
 	}
+	// Two sizes at or above From extend the law, unchecked.
+	fc = ForecastRun(laws, runs[:4], 70000, DefaultLimits)
+	if want := at(70000); fc.Seconds.Refused != "" || math.Abs(fc.Seconds.Value-want) > 0.01*want {
+		t.Errorf("two sizes from 2,000 rows: %v, want %.4g", fc.Seconds, want)
+	}
 }
