@@ -192,13 +192,15 @@ func TestWriteMapsWarnsOnceForMissingGlyphs(t *testing.T) {
 	if len(obs.warn) != 1 || !strings.Contains(obs.warn[0], "U+65E5") || strings.Contains(obs.warn[0], "U+03B3") {
 		t.Errorf("warnings %q, want one naming 日 and 本 but not γ", obs.warn)
 	}
-	v.Placed = []bool{false, true, false, true}
+	// Row 0 a reference row (out of the colouring), row 2 a placed row
+	// without a value: the groups are those of rows 1 and 3.
+	v.Placed = []bool{false, true, true, true}
 	v.NoValue = []bool{false, false, true, false}
 	if err := WriteMaps(t.TempDir(), v, nil); err != nil {
 		t.Fatal(err)
 	}
-	if c := v.colouring(); c.Codes[2] != -1 || len(c.Groups) != 3 {
-		t.Errorf("colouring %+v, want row 2 without a value and 3 groups", c)
+	if c := v.colouring(); c.Codes[0] != 0 || c.Codes[2] != -1 || len(c.Groups) != 2 || c.NoValue() != 1 {
+		t.Errorf("colouring %+v, want row 2 without a value and 2 groups", c)
 	}
 	v.Labels = v.Labels[:2]
 	if err := WriteMaps(t.TempDir(), v, nil); err == nil {

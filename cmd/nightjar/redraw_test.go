@@ -37,7 +37,7 @@ func TestRecolour(t *testing.T) {
 	}{
 		{[]string{"recolour", runDir, "--by", "nope"}, `column "nope"`},
 		{[]string{"recolour", runDir, "--as", "colours"}, "--as"},
-		{[]string{"recolour"}, "name the run directory"},
+		{[]string{"recolour"}, "name the run or placement directory"},
 		{[]string{"recolour", filepath.Join(dir, "missing")}, "not a run directory"},
 	}
 	for _, tc := range tests {
