@@ -6,6 +6,7 @@ import (
 	"context"
 	"encoding/csv"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"math"
 	"os"
@@ -21,6 +22,7 @@ import (
 	"github.com/apache/arrow/go/v17/arrow/memory"
 	"github.com/apache/arrow/go/v17/parquet/pqarrow"
 
+	"nightjar/checkpoint"
 	"nightjar/ingest"
 )
 
@@ -293,6 +295,43 @@ func TestLegacyReduce(t *testing.T) {
 		if err := json.Unmarshal(b, &out); err != nil || out.Reduce != r {
 			t.Errorf("reduce %d came back as %d (%v)", r, out.Reduce, err)
 		}
+	}
+}
+
+// TestUnknownSettingsRefused: settings naming a setting this version does
+// not have are refused, by name, and a run directory whose manifest holds
+// them is refused naming the version that made it; every field of Settings
+// reads back.
+func TestUnknownSettingsRefused(t *testing.T) {
+	s := DefaultSettings()
+	err := json.Unmarshal([]byte(`{"input":"x.csv","spin_rate":3,"perplexity":20}`), &s)
+	var unknown *UnknownSettingsError
+	if !errors.As(err, &unknown) || len(unknown.Keys) != 1 || unknown.Keys[0] != "spin_rate" {
+		t.Fatalf("unknown key: %v, want an UnknownSettingsError naming spin_rate", err)
+	}
+	b, _ := json.Marshal(DefaultSettings())
+	if err := json.Unmarshal(b, &s); err != nil {
+		t.Errorf("every setting: %v", err)
+	}
+	dir, _ := smallRun(t, 150, true, false)
+	run, err := checkpoint.Open(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := run.Manifest()
+	var params map[string]any
+	if err := json.Unmarshal(m.Params, &params); err != nil {
+		t.Fatal(err)
+	}
+	params["spin_rate"] = 3
+	m.Params, _ = json.Marshal(params)
+	m.Version = "0.0.9"
+	if err := run.SaveManifest(m); err != nil {
+		t.Fatal(err)
+	}
+	_, err = Redraw(context.Background(), dir, RedrawOptions{}, nil)
+	if !IsUserFault(err) || !strings.Contains(err.Error(), "spin_rate") || !strings.Contains(err.Error(), "0.0.9") {
+		t.Errorf("re-drawing a run with an unknown setting: %v", err)
 	}
 }
 

@@ -2,7 +2,6 @@ package nightjar
 
 import (
 	"context"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"io/fs"
@@ -41,13 +40,9 @@ func openReference(dir string) (*checkpoint.Run, Settings, error) {
 	if m.Status != checkpoint.StatusFinished {
 		return nil, Settings{}, &RunDirError{Dir: dir, Msg: fmt.Sprintf("the reference run is not finished (status %s, phase %s): finish it with 'nightjar resume %s' before placing rows into its map", m.Status, m.Phase, dir)}
 	}
-	s := DefaultSettings()
-	if err := json.Unmarshal(m.Params, &s); err != nil {
-		return nil, s, &RunDirError{Dir: dir, Msg: fmt.Sprintf("manifest parameters unreadable: %v", err)}
-	}
-	s.fillLegacy()
-	if err := s.Validate(); err != nil {
-		return nil, s, &RunDirError{Dir: dir, Msg: fmt.Sprintf("manifest parameters: %v", err)}
+	s, err := settingsOf(run)
+	if err != nil {
+		return nil, s, err
 	}
 	return run, s, nil
 }

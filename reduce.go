@@ -1,7 +1,6 @@
 package nightjar
 
 import (
-	"encoding/json"
 	"fmt"
 
 	"nightjar/ingest"
@@ -36,24 +35,6 @@ func (s *Settings) reduction() ingest.Reduction {
 		r.Components, r.Above = autoReduceTo, autoReduceAbove
 	}
 	return r
-}
-
-// UnmarshalJSON reads settings, giving a manifest written before automatic
-// reduction existed, which left "reduce" out when it was 0, its meaning: no
-// reduction (absent fields otherwise keep the values already in s).
-func (s *Settings) UnmarshalJSON(b []byte) error {
-	type plain Settings
-	var keys map[string]json.RawMessage
-	if err := json.Unmarshal(b, &keys); err != nil {
-		return err
-	}
-	if err := json.Unmarshal(b, (*plain)(s)); err != nil {
-		return err
-	}
-	if _, ok := keys["reduce"]; !ok {
-		s.Reduce = 0
-	}
-	return nil
 }
 
 // recordReduction notes the projection made while reading, and records it in

@@ -271,10 +271,16 @@ func resumeLocked(ctx context.Context, run *checkpoint.Run, lock *checkpoint.Loc
 	return execute(ctx, run, lock, s, rt, true, obs)
 }
 
-// settingsOf decodes and checks the settings a run's manifest records.
+// settingsOf decodes and checks the settings a run's manifest records. A
+// setting this version does not know is refused rather than dropped: the
+// run would continue without it and end with other bits.
 func settingsOf(run *checkpoint.Run) (Settings, error) {
 	s := DefaultSettings()
-	if err := json.Unmarshal(run.Manifest().Params, &s); err != nil {
+	m := run.Manifest()
+	if err := json.Unmarshal(m.Params, &s); err != nil {
+		if unknown := (*UnknownSettingsError)(nil); errors.As(err, &unknown) {
+			return s, &RunDirError{Dir: run.Dir, Msg: fmt.Sprintf("its manifest records settings this nightjar (%s) does not have (%s): the run was made by nightjar %s; continue it with that version", Version, strings.Join(unknown.Keys, ", "), m.Version)}
+		}
 		return s, &RunDirError{Dir: run.Dir, Msg: fmt.Sprintf("manifest parameters unreadable: %v", err)}
 	}
 	s.fillLegacy()

@@ -4,6 +4,8 @@ import (
 	"encoding/json"
 	"fmt"
 	"math"
+	"reflect"
+	"slices"
 	"strings"
 
 	"nightjar/checkpoint"
@@ -39,9 +41,9 @@ type Settings struct {
 	Iterations      int     `json:"iterations" flag:"steps" help:"optimiser steps in all, the early phase included" topic:"optimiser"`
 	EarlyIterations int     `json:"early_iterations" flag:"early-steps" help:"steps of the early phase (early exaggeration and early momentum)" topic:"optimiser"`
 	Exaggeration    float64 `json:"exaggeration" flag:"early-exaggeration" help:"exaggeration factor of the early phase" topic:"optimiser"`
-	// LateExaggeration and the start are absent from manifests written
+	// MainExaggeration and the start are absent from manifests written
 	// before they existed; 0 and "" then mean 1 and "pca".
-	LateExaggeration float64 `json:"late_exaggeration" flag:"main-exaggeration" help:"exaggeration after the early phase; above 1 keeps clusters tighter and more of the global layout on very large tables (Kobak & Berens 2019)" topic:"optimiser"`
+	MainExaggeration float64 `json:"main_exaggeration" flag:"main-exaggeration" help:"exaggeration after the early phase; above 1 keeps clusters tighter and more of the global layout on very large tables (Kobak & Berens 2019)" topic:"optimiser"`
 	Start            string  `json:"start" flag:"start-map" help:"starting map: pca (first principal components) or subsample (map --start-sample random rows first, place the others among their neighbours; Kobak & Berens 2019)" topic:"optimiser"`
 	StartRows        int     `json:"start_rows" flag:"start-sample" help:"rows mapped first by --start-map subsample" topic:"optimiser"`
 	LearningRate     float64 `json:"learning_rate" flag:"learning-rate" help:"step size; 0 = automatic (rows / exaggeration, with a floor)" topic:"optimiser"`
@@ -65,7 +67,7 @@ func DefaultSettings() Settings {
 	return Settings{
 		Dims: 2, Perplexity: 30, Neighbours: "auto", Metric: "euclidean", CheckRecall: 1000,
 		RecallGoal: 0.99,
-		Iterations: 1000, EarlyIterations: 250, Exaggeration: 12, LateExaggeration: 1,
+		Iterations: 1000, EarlyIterations: 250, Exaggeration: 12, MainExaggeration: 1,
 		Start: "pca", StartRows: 25000,
 		MomentumEarly: 0.5, MomentumLate: 0.8, Dof: 1, Theta: 0.5,
 		Repulsion: "auto", Seed: 1, Reduce: ReduceAuto,
@@ -112,8 +114,8 @@ func (s *Settings) Validate() error {
 	if s.Start == "subsample" && s.StartRows < 100 {
 		return bad("start-sample", "must be at least 100, got %d", s.StartRows)
 	}
-	if !(s.LateExaggeration > 0 && s.LateExaggeration <= 1e4) {
-		return bad("main-exaggeration", "must be in (0, 10000], got %g", s.LateExaggeration)
+	if !(s.MainExaggeration > 0 && s.MainExaggeration <= 1e4) {
+		return bad("main-exaggeration", "must be in (0, 10000], got %g", s.MainExaggeration)
 	}
 	if s.Iterations < 1 || s.EarlyIterations < 0 || s.EarlyIterations > s.Iterations {
 		return bad("steps", "(%d) must be at least 1 and at least --early-steps (%d)", s.Iterations, s.EarlyIterations)
@@ -123,8 +125,8 @@ func (s *Settings) Validate() error {
 
 // fillLegacy gives fields absent from an older manifest their meaning.
 func (s *Settings) fillLegacy() {
-	if s.LateExaggeration == 0 {
-		s.LateExaggeration = 1
+	if s.MainExaggeration == 0 {
+		s.MainExaggeration = 1
 	}
 	if s.Start == "" {
 		s.Start = "pca"
@@ -237,7 +239,7 @@ func (s *Settings) gradientParams(n, threads int) (gradient.Params, error) {
 	}
 	p.Dims, p.Dof, p.Theta = s.Dims, s.Dof, s.Theta
 	p.Exaggeration, p.EarlyIterations, p.Iterations = s.Exaggeration, s.EarlyIterations, s.Iterations
-	p.LateExaggeration = s.LateExaggeration
+	p.MainExaggeration = s.MainExaggeration
 	p.LearningRate, p.MomentumEarly, p.MomentumLate = s.LearningRate, s.MomentumEarly, s.MomentumLate
 	p.Method, p.Threads = method, threads
 	if err := p.Validate(n); err != nil {
@@ -288,3 +290,57 @@ func trimList(v string) []string {
 	}
 	return out
 }
+
+// UnmarshalJSON reads settings, giving a manifest written before automatic
+// reduction existed, which left "reduce" out when it was 0, its meaning: no
+// reduction (absent fields otherwise keep the values already in s). A key
+// that names no setting is an *UnknownSettingsError: dropping it would let a
+// run continue without a setting it was made with.
+func (s *Settings) UnmarshalJSON(b []byte) error {
+	type plain Settings
+	var keys map[string]json.RawMessage
+	if err := json.Unmarshal(b, &keys); err != nil {
+		return err
+	}
+	var unknown []string
+	for k := range keys {
+		if !settingKeys[k] {
+			unknown = append(unknown, k)
+		}
+	}
+	if len(unknown) > 0 {
+		slices.Sort(unknown)
+		return &UnknownSettingsError{Keys: unknown}
+	}
+	if err := json.Unmarshal(b, (*plain)(s)); err != nil {
+		return err
+	}
+	if _, ok := keys["reduce"]; !ok {
+		s.Reduce = 0
+	}
+	return nil
+}
+
+// UnknownSettingsError is the error of settings (a manifest's, a
+// prediction's) that name settings this version does not have: written by
+// another version of nightjar.
+type UnknownSettingsError struct {
+	Keys []string
+}
+
+func (e *UnknownSettingsError) Error() string {
+	return "unknown settings " + strings.Join(e.Keys, ", ")
+}
+
+// settingKeys holds the JSON key of every field of Settings.
+var settingKeys = func() map[string]bool {
+	keys := map[string]bool{}
+	t := reflect.TypeFor[Settings]()
+	for i := range t.NumField() {
+		name, _, _ := strings.Cut(t.Field(i).Tag.Get("json"), ",")
+		if name != "" && name != "-" {
+			keys[name] = true
+		}
+	}
+	return keys
+}()

@@ -68,7 +68,7 @@
 // with the constants 0.2, 0.8 and 0.01 used by van der Maaten 2014 (common
 // practice). While t < EarlyIterations the attractive term is multiplied by
 // the early exaggeration ρ (12 for 250 iterations, van der Maaten 2014) and
-// the momentum is MomentumEarly (0.5); afterwards by LateExaggeration
+// the momentum is MomentumEarly (0.5); afterwards by MainExaggeration
 // (default 1, none; values above 1 as in Kobak & Berens 2019, Nat. Commun.
 // 10) with MomentumLate (0.8) (van der Maaten & Hinton 2008).
 //

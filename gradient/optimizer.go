@@ -25,7 +25,7 @@ type State struct {
 // the t-SNE objective (van der Maaten & Hinton 2008; Jacobs 1988 for the
 // gains). Schedule, for iteration t counted from 0: while t < EarlyIterations
 // the attractive term is multiplied by Exaggeration and the momentum is
-// MomentumEarly; afterwards by LateExaggeration (default 1, none) with
+// MomentumEarly; afterwards by MainExaggeration (default 1, none) with
 // MomentumLate. KL is always reported without exaggeration. Each Step:
 //
 //	g      ← ∂L_ρ/∂Y (see Gradient; includes the constant 4)
@@ -146,7 +146,7 @@ func (o *Optimizer) Step() error {
 	if o.Done() {
 		return ErrDone
 	}
-	exag, mom := o.params.LateExaggeration, o.params.MomentumLate
+	exag, mom := o.params.MainExaggeration, o.params.MomentumLate
 	if exag == 0 {
 		exag = 1
 	}

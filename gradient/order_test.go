@@ -53,7 +53,7 @@ func TestLocalityOrder(t *testing.T) {
 }
 
 // TestOptimizerFirstStep checks one Step, in input row order, in the early
-// phase and after it (with and without late exaggeration), against the
+// phase and after it (with and without an exaggeration after it), against the
 // update written out from its definition (van der Maaten & Hinton 2008 for
 // the momentum step; Jacobs 1988 for the gains): on the first step every
 // gain with g ≠ 0 becomes 1.2, update = −(η/4)·1.2·g (the gradient keeping
@@ -67,16 +67,16 @@ func TestOptimizerFirstStep(t *testing.T) {
 	for _, tc := range []struct {
 		name       string
 		early      int
-		late, exag float64 // LateExaggeration, and the factor the step must use
+		late, exag float64 // MainExaggeration, and the factor the step must use
 	}{
 		{"early phase", 250, 0, 12},
 		{"late, default", 0, 0, 1},
-		{"late exaggeration 3", 0, 3, 3},
+		{"main exaggeration 3", 0, 3, 3},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			params := DefaultParams(n)
 			params.Method, params.Threads = Exact, 2
-			params.EarlyIterations, params.LateExaggeration = tc.early, tc.late
+			params.EarlyIterations, params.MainExaggeration = tc.early, tc.late
 			g := make([]float64, n*dims)
 			if _, err := Gradient(p, y0, params, tc.exag, g); err != nil {
 				t.Fatal(err)

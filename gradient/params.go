@@ -74,11 +74,11 @@ type Params struct {
 	Theta           float64
 	Exaggeration    float64 // early exaggeration ρ, (0, 1e4]
 	EarlyIterations int     // iterations with exaggeration and early momentum, [0, Iterations]
-	// LateExaggeration multiplies the attractive term after the early
+	// MainExaggeration multiplies the attractive term after the early
 	// phase, [0, 1e4]; 0 means 1 (plain t-SNE). Values above 1 pull
 	// clusters tighter and keep more of the global layout on very large N
 	// (Kobak & Berens 2019, Nat. Commun. 10:5416).
-	LateExaggeration float64
+	MainExaggeration float64
 	Iterations       int // total iterations including the early phase, ≥ 1
 	// LearningRate η in the units of a gradient WITHOUT the constant 4, the
 	// convention in which 200 is the classic value; the optimiser applies
@@ -155,8 +155,8 @@ func (p Params) Validate(n int) error {
 		return bad("Exaggeration", p.Exaggeration, "a number in (0, 1e4]")
 	case p.Iterations < 1:
 		return bad("Iterations", p.Iterations, "at least 1")
-	case !(p.LateExaggeration >= 0 && p.LateExaggeration <= 1e4):
-		return bad("LateExaggeration", p.LateExaggeration, "0 (meaning 1) or a number in (0, 1e4]")
+	case !(p.MainExaggeration >= 0 && p.MainExaggeration <= 1e4):
+		return bad("MainExaggeration", p.MainExaggeration, "0 (meaning 1) or a number in (0, 1e4]")
 	case p.EarlyIterations < 0 || p.EarlyIterations > p.Iterations:
 		return bad("EarlyIterations", p.EarlyIterations, fmt.Sprintf("an integer in [0, Iterations=%d]", p.Iterations))
 	case !(p.LearningRate >= 0) || !finite(p.LearningRate):
