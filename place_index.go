@@ -9,7 +9,12 @@ import (
 
 	"nightjar/checkpoint"
 	"nightjar/internal/par"
+	"nightjar/knn"
 )
+
+// placeQueries is the number of new rows per unit of parallel work of the
+// index search (fixed, so the result does not depend on the threads).
+const placeQueries = 64
 
 // The neighbour index of a large reference: a forest of random projection
 // trees over the reference rows (Dasgupta & Freund, "Random projection trees
@@ -196,7 +201,7 @@ func (ix *refIndex) search(r *refRows, s *searcher, q []float32, k int, skip int
 		if i == skip {
 			return
 		}
-		c := nbCandidate{refFastDist2(q, r.x.Row(int(i))), i}
+		c := nbCandidate{knn.FastDist2(q, r.x.Row(int(i))), i}
 		if len(s.best) == ef && !nbWorse(s.best[0], c) {
 			return
 		}
@@ -237,33 +242,12 @@ func (ix *refIndex) search(r *refRows, s *searcher, q []float32, k int, skip int
 		}
 	}
 	for j := range s.best {
-		s.best[j].d = refDist2(q, r.x.Row(int(s.best[j].i)))
+		s.best[j].d = knn.Dist2(q, r.x.Row(int(s.best[j].i)))
 	}
 	nbSort(s.best)
 	for j := range k {
 		idx[j], d2[j] = s.best[j].i, s.best[j].d
 	}
-}
-
-// refFastDist2 is a float32 squared distance with four partial sums in a fixed
-// order, for ranking candidates during the search.
-func refFastDist2(a, b []float32) float32 {
-	var s0, s1, s2, s3 float32
-	n := len(a)
-	b = b[:n]
-	i := 0
-	for ; i+4 <= n; i += 4 {
-		d0, d1, d2, d3 := a[i]-b[i], a[i+1]-b[i+1], a[i+2]-b[i+2], a[i+3]-b[i+3]
-		s0 += d0 * d0
-		s1 += d1 * d1
-		s2 += d2 * d2
-		s3 += d3 * d3
-	}
-	for ; i < n; i++ {
-		d := a[i] - b[i]
-		s0 += d * d
-	}
-	return (s0 + s1) + (s2 + s3)
 }
 
 // siftUp restores the max-heap (under worse) above position i.

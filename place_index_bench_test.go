@@ -110,7 +110,7 @@ func BenchmarkPlaceNeighbours(b *testing.B) {
 	}
 	t0 = time.Now()
 	hg := hnsw.NewGraph[int32]()
-	hg.Distance = func(a, b []float32) float32 { return refFastDist2(a, b) }
+	hg.Distance = func(a, b []float32) float32 { return knn.FastDist2(a, b) }
 	for i := range n {
 		hg.Add(hnsw.MakeNode(int32(i), ref.Row(i)))
 	}

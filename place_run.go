@@ -288,7 +288,7 @@ func (j *placeJob) prepare(resumed bool) error {
 	j.setStatus(StatusRunning)
 	j.rep.Input, j.rep.Format, j.rep.TableRows, j.rep.Skipped, j.rep.Rows = j.s.Input, t.Format, n, t.Skipped, end-first
 	j.rep.Parameters = j.s
-	if j.x, err = metricMatrix(t.Matrix, ref.metric()); err != nil {
+	if j.x, err = knn.MetricRows(t.Matrix, ref.metric()); err != nil {
 		return fmt.Errorf("%s: %w (cosine distance needs a non-zero row)", j.s.Input, err)
 	}
 	j.id, j.label = t.ID, t.Label

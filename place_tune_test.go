@@ -85,7 +85,7 @@ func newHeldOut(t testing.TB, name string, ref *reference, tab *ingest.Table, lo
 				x.Data[i] = float32(v)
 			}
 		}
-		if h.x, err = metricMatrix(x, ref.metric()); err != nil {
+		if h.x, err = knn.MetricRows(x, ref.metric()); err != nil {
 			t.Fatal(err)
 		}
 		h.label = labelStrings(tab.Label)

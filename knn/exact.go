@@ -132,7 +132,7 @@ func search(x core.Matrix, rows []int32, k int, opt ExactOptions) ([]int32, []fl
 	if err != nil {
 		return nil, nil, fmt.Errorf("exact neighbours: %w", err)
 	}
-	c, norms := centreRows(m)
+	c, norms, _ := centreRows(m)
 
 	nq := x.N
 	if rows != nil {
@@ -150,7 +150,8 @@ func search(x core.Matrix, rows []int32, k int, opt ExactOptions) ([]int32, []fl
 		if scratch[w] == nil {
 			scratch[w] = newExactScratch(m.D, k)
 		}
-		scratch[w].block(m, c, norms, rows, lo, hi, k, coef, index[lo*k:hi*k], dist[lo*k:hi*k])
+		scratch[w].loadTable(m, c, norms, rows, lo, hi)
+		scratch[w].block(m, c, norms, hi-lo, k, coef, index[lo*k:hi*k], dist[lo*k:hi*k])
 		if opt.Progress != nil {
 			mu.Lock()
 			done += int64(hi - lo)
@@ -169,8 +170,8 @@ func search(x core.Matrix, rows []int32, k int, opt ExactOptions) ([]int32, []fl
 // zeros. With the tile transposed, blas32.Gemm runs its A·B path, which is
 // made of axpy operations of length refTile instead of dot products of length D:
 // 1.5–1.8× faster at D = 50 on the project machine (BenchmarkDistanceTile).
-func centreRows(m core.Matrix) ([]float32, []float32) {
-	mean := make([]float64, m.D)
+func centreRows(m core.Matrix) (c, norms []float32, mean []float64) {
+	mean = make([]float64, m.D)
 	for i := 0; i < m.N; i++ {
 		for j, v := range m.Data[i*m.D : (i+1)*m.D] {
 			mean[j] += float64(v)
@@ -180,8 +181,8 @@ func centreRows(m core.Matrix) ([]float32, []float32) {
 		mean[j] /= float64(m.N)
 	}
 	tiles := (m.N + refTile - 1) / refTile
-	c := make([]float32, tiles*m.D*refTile)
-	norms := make([]float32, m.N)
+	c = make([]float32, tiles*m.D*refTile)
+	norms = make([]float32, m.N)
 	for i := 0; i < m.N; i++ {
 		var s float64
 		tile := c[(i/refTile)*m.D*refTile:]
@@ -193,7 +194,7 @@ func centreRows(m core.Matrix) ([]float32, []float32) {
 		}
 		norms[i] = float32(s)
 	}
-	return c, norms
+	return c, norms, mean
 }
 
 // exactScratch is one worker's memory for the exact search.
@@ -202,6 +203,12 @@ type exactScratch struct {
 	dots []float32 // queryBlock×refTile dot products
 	lb   []float32 // refTile screened lower bounds, one query row at a time
 	heap []exCand  // queryBlock×k candidates
+	// The block's queries: each one's row under the metric, the squared
+	// norm of its centred row, and the row it may not have as a neighbour
+	// (itself for a row of the table, −1 for none).
+	rows [][]float32
+	qn   []float32
+	skip []int32
 }
 
 type exCand struct {
@@ -221,26 +228,35 @@ func newExactScratch(d, k int) *exactScratch {
 		dots: make([]float32, queryBlock*refTile),
 		lb:   make([]float32, refTile),
 		heap: make([]exCand, queryBlock*k),
+		rows: make([][]float32, queryBlock),
+		qn:   make([]float32, queryBlock),
+		skip: make([]int32, queryBlock),
 	}
 }
 
-// block finds the neighbours of queries lo..hi−1 (positions in rows, or row
-// numbers when rows is nil) and writes them, sorted, into index and dist.
-func (s *exactScratch) block(m core.Matrix, c, norms []float32, rows []int32, lo, hi, k int, coef float32, index []int32, dist []float32) {
-	D, N, bn := m.D, m.N, hi-lo
-	qid := func(q int) int {
-		if rows == nil {
-			return lo + q
+// loadTable loads rows lo..hi−1 of the table as queries (positions in rows,
+// or row numbers when rows is nil): their centred coordinates from the tiles
+// c, their norms, and each one leaves itself out.
+func (s *exactScratch) loadTable(m core.Matrix, c, norms []float32, rows []int32, lo, hi int) {
+	D := m.D
+	for q := range hi - lo {
+		r := lo + q
+		if rows != nil {
+			r = int(rows[lo+q])
 		}
-		return int(rows[lo+q])
-	}
-	for q := 0; q < bn; q++ {
-		r := qid(q)
 		tile, j := c[(r/refTile)*D*refTile:], r%refTile
 		for l := 0; l < D; l++ {
 			s.q[q*D+l] = tile[l*refTile+j]
 		}
+		s.rows[q], s.qn[q], s.skip[q] = m.Data[r*D:(r+1)*D], norms[r], int32(r)
 	}
+}
+
+// block finds the neighbours among the rows of m (centred in the tiles c,
+// with norms) of the bn queries loaded, and writes them, sorted, into index
+// and dist.
+func (s *exactScratch) block(m core.Matrix, c, norms []float32, bn, k int, coef float32, index []int32, dist []float32) {
+	D, N := m.D, m.N
 	fill := make([]int, bn) // candidates held per query so far
 	qa := blas32.General{Rows: bn, Cols: D, Stride: D, Data: s.q[:bn*D]}
 	for t0 := 0; t0 < N; t0 += refTile {
@@ -250,10 +266,10 @@ func (s *exactScratch) block(m core.Matrix, c, norms []float32, rows []int32, lo
 			0, blas32.General{Rows: bn, Cols: tn, Stride: refTile, Data: s.dots})
 		nr := norms[t0 : t0+tn]
 		for q := 0; q < bn; q++ {
-			r := qid(q)
+			r := int(s.skip[q])
 			h := s.heap[q*k : (q+1)*k]
-			a := m.Data[r*D : (r+1)*D]
-			nq := norms[r] * (1 - coef)
+			a := s.rows[q]
+			nq := s.qn[q] * (1 - coef)
 			dots := s.dots[q*refTile : q*refTile+tn]
 			j := 0
 			// Fill the heap with the first k other rows, exact distances.
