@@ -279,7 +279,7 @@ func settingsOf(run *checkpoint.Run) (Settings, error) {
 	m := run.Manifest()
 	if err := json.Unmarshal(m.Params, &s); err != nil {
 		if unknown := (*UnknownSettingsError)(nil); errors.As(err, &unknown) {
-			return s, &RunDirError{Dir: run.Dir, Msg: fmt.Sprintf("its manifest records settings this nightjar (%s) does not have (%s): the run was made by nightjar %s; continue it with that version", Version, strings.Join(unknown.Keys, ", "), m.Version)}
+			return s, &RunDirError{Dir: run.Dir, Msg: fmt.Sprintf("its manifest records settings this build of nightjar (%s) does not have (%s): the run was made by another build (nightjar %s); continue it with that build", Version, strings.Join(unknown.Keys, ", "), m.Version)}
 		}
 		return s, &RunDirError{Dir: run.Dir, Msg: fmt.Sprintf("manifest parameters unreadable: %v", err)}
 	}
