@@ -194,13 +194,20 @@ func MNIST(dir string, n int) (*ingest.Table, error) {
 	if n > 0 && rows < n {
 		return nil, fmt.Errorf("reading MNIST in %s: asked for %d rows, the files hold %d", dir, n, rows)
 	}
+	return mnistTable(pixels, labels, d, 1), nil
+}
+
+// mnistTable is the table of MNIST digits: rows of d pixels (grey / 255),
+// their labels, the features "px000"… and the ids firstID, firstID+1, ….
+func mnistTable(pixels []float32, labels []string, d int, firstID int64) *ingest.Table {
+	rows := len(labels)
 	features := make([]string, d)
 	for f := range features {
 		features[f] = fmt.Sprintf("px%03d", f)
 	}
 	ids := make([]int64, rows)
 	for i := range ids {
-		ids[i] = int64(i + 1)
+		ids[i] = firstID + int64(i)
 	}
 	mat := core.Matrix{N: rows, D: d, Data: pixels}
 	return &ingest.Table{
@@ -210,7 +217,7 @@ func MNIST(dir string, n int) (*ingest.Table, error) {
 		Label:    &ingest.Column{Name: "digit", Strings: labels},
 		Hash:     ingest.Fingerprint(mat),
 		Format:   "idx",
-	}, nil
+	}
 }
 
 // readMNISTPart reads the IDX files of images and labels in dir and checks that

@@ -2,9 +2,9 @@ package bench
 
 import (
 	"fmt"
+	"strconv"
 
 	"nightjar/ingest"
-	"nightjar/internal/core"
 )
 
 // MNISTTest loads the first n (all when n ≤ 0) of the 10,000 MNIST test
@@ -31,22 +31,8 @@ func MNISTTest(dir string, n int) (*ingest.Table, error) {
 		pixels[i] = float32(v) / 255
 	}
 	labels := make([]string, rows)
-	ids := make([]int64, rows)
 	for i, l := range lab[:rows] {
-		labels[i] = fmt.Sprint(l)
-		ids[i] = int64(60000 + i + 1)
+		labels[i] = strconv.Itoa(int(l))
 	}
-	features := make([]string, d)
-	for f := range features {
-		features[f] = fmt.Sprintf("px%03d", f)
-	}
-	mat := core.Matrix{N: rows, D: d, Data: pixels}
-	return &ingest.Table{
-		Matrix:   mat,
-		Features: features,
-		ID:       &ingest.Column{Name: "id", Ints: ids},
-		Label:    &ingest.Column{Name: "digit", Strings: labels},
-		Hash:     ingest.Fingerprint(mat),
-		Format:   "idx",
-	}, nil
+	return mnistTable(pixels, labels, d, 60001), nil
 }
