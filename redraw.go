@@ -64,12 +64,8 @@ func Redraw(ctx context.Context, dir string, opt RedrawOptions, obs Observer) (*
 	if err := opt.check(); err != nil {
 		return nil, err
 	}
-	if IsPlacement(dir) {
-		// Reading the reference's map takes two goroutines, as the CLI's
-		// default; the result does not depend on it.
-		return redrawPlacement(ctx, dir, opt, 2, obs)
-	}
-	if _, err := os.Stat(filepath.Join(dir, checkpoint.ManifestName)); err != nil {
+	placement := IsPlacement(dir)
+	if _, err := os.Stat(filepath.Join(dir, checkpoint.ManifestName)); err != nil && !placement {
 		return nil, &RunDirError{Dir: dir, Msg: "is not a run directory or a placement (no " + checkpoint.ManifestName + " or " + FileStateDir + ")"}
 	}
 	out := opt.Out
@@ -83,41 +79,55 @@ func Redraw(ctx context.Context, dir string, opt RedrawOptions, obs Observer) (*
 	} else if err := os.MkdirAll(out, 0o755); err != nil {
 		return nil, fmt.Errorf("creating %s: %w", out, err)
 	}
-	run, err := checkpoint.Open(dir)
+	view := redrawRun
+	if placement {
+		view = redrawPlacement
+	}
+	v, res, err := view(ctx, dir, opt, obs)
 	if err != nil {
-		return nil, &RunDirError{Dir: dir, Msg: errorText(err)}
-	}
-	if st := run.Manifest().Status; st != checkpoint.StatusFinished {
-		return nil, &RunDirError{Dir: dir, Msg: "is not finished (status " + st + "); run 'nightjar resume " + dir + "' first"}
-	}
-	s, err := settingsOf(run)
-	if err != nil {
-		return nil, err
-	}
-	v, err := readFinishedMap(run, s)
-	if err != nil {
-		return nil, err
-	}
-	if err := ctx.Err(); err != nil {
-		return nil, err
-	}
-	res := &RedrawResult{Rows: len(v.Map) / v.Dims}
-	if err := colourBy(run, s, &v, opt, res, obs); err != nil {
 		return nil, err
 	}
 	if err := ctx.Err(); err != nil {
 		return nil, err
 	}
 	v.PointSize, v.Opacity = opt.PointSize, opt.Opacity
-	v.Title = opt.Title
-	if v.Title == "" {
-		v.Title = mapTitle(s.Input, v.By)
+	if opt.Title != "" {
+		v.Title = opt.Title
 	}
 	if err := WriteMaps(out, v, obs); err != nil {
 		return nil, err
 	}
 	res.Image, res.Page = filepath.Join(out, FileMap), filepath.Join(out, FileMapPage)
 	return res, nil
+}
+
+// redrawRun returns the view of the finished run in dir coloured as opt
+// asks, titled by its input and colouring.
+func redrawRun(ctx context.Context, dir string, opt RedrawOptions, obs Observer) (MapView, *RedrawResult, error) {
+	run, err := checkpoint.Open(dir)
+	if err != nil {
+		return MapView{}, nil, &RunDirError{Dir: dir, Msg: errorText(err)}
+	}
+	if st := run.Manifest().Status; st != checkpoint.StatusFinished {
+		return MapView{}, nil, &RunDirError{Dir: dir, Msg: "is not finished (status " + st + "); run 'nightjar resume " + dir + "' first"}
+	}
+	s, err := settingsOf(run)
+	if err != nil {
+		return MapView{}, nil, err
+	}
+	v, err := readFinishedMap(run, s)
+	if err != nil {
+		return MapView{}, nil, err
+	}
+	if err := ctx.Err(); err != nil {
+		return MapView{}, nil, err
+	}
+	res := &RedrawResult{Rows: len(v.Map) / v.Dims}
+	if err := colourBy(run, s, &v, opt, res, obs); err != nil {
+		return MapView{}, nil, err
+	}
+	v.Title = mapTitle(s.Input, v.By)
+	return v, res, nil
 }
 
 // check refuses options out of range.

@@ -8,39 +8,28 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
-
-	"nightjar/checkpoint"
 )
 
-// redrawPlacement is Redraw for a finished placement (or the merge of its
-// shards): the reference stays grey and only the placed rows are coloured,
-// by a column of placed.parquet (voted_label, vote_share,
-// nearest_distance, the new table's label), else of a second table joined
-// on the id (opt.Table), else of the placement's new table joined on the
-// id.
-func redrawPlacement(ctx context.Context, dir string, opt RedrawOptions, threads int, obs Observer) (*RedrawResult, error) {
-	out := opt.Out
-	if out == "" || sameDir(out, dir) {
-		out = dir
-		lock, err := checkpoint.AcquireLock(dir)
-		if err != nil {
-			return nil, err
-		}
-		defer lock.Release()
-	} else if err := os.MkdirAll(out, 0o755); err != nil {
-		return nil, fmt.Errorf("creating %s: %w", out, err)
-	}
+// redrawPlacement returns the view of the finished placement (or merge of
+// shards) in dir, for Redraw: the reference stays grey and only the placed
+// rows are coloured, by a column of placed.parquet (voted_label,
+// vote_share, nearest_distance, the new table's label), else of a second
+// table joined on the id (opt.Table), else of the placement's new table
+// joined on the id.
+func redrawPlacement(ctx context.Context, dir string, opt RedrawOptions, obs Observer) (MapView, *RedrawResult, error) {
 	st, err := readPlaceState(dir)
 	if err != nil {
-		return nil, &RunDirError{Dir: dir, Msg: "not a placement directory: " + errorText(err)}
+		return MapView{}, nil, &RunDirError{Dir: dir, Msg: "not a placement directory: " + errorText(err)}
 	}
 	table := filepath.Join(dir, FilePlaced)
 	if _, err := os.Stat(table); st.Status != StatusFinished || err != nil {
-		return nil, &RunDirError{Dir: dir, Msg: "holds no finished placement (status " + st.Status + "); run the placement again to finish it, or 'nightjar merge' its shards"}
+		return MapView{}, nil, &RunDirError{Dir: dir, Msg: "holds no finished placement (status " + st.Status + "); run the placement again to finish it, or 'nightjar merge' its shards"}
 	}
-	ref, err := loadReferenceMap(st.Settings.Reference, threads)
+	// Reading the reference's map takes two goroutines, as the CLI's
+	// default; the result does not depend on it.
+	ref, err := loadReferenceMap(st.Settings.Reference, 2)
 	if err != nil {
-		return nil, err
+		return MapView{}, nil, err
 	}
 	id := st.IDColumn
 	if id == "" {
@@ -48,31 +37,22 @@ func redrawPlacement(ctx context.Context, dir string, opt RedrawOptions, threads
 	}
 	t, err := readPlacedTable(table, id, st.LabelColumn, ref.s.Dims, ref.classes != nil)
 	if err != nil {
-		return nil, &RunDirError{Dir: dir, Msg: "its " + FilePlaced + " is unreadable: " + errorText(err)}
+		return MapView{}, nil, &RunDirError{Dir: dir, Msg: "its " + FilePlaced + " is unreadable: " + errorText(err)}
 	}
 	if err := ctx.Err(); err != nil {
-		return nil, err
+		return MapView{}, nil, err
 	}
 	v := placedView(ref, t, st.Settings.Input)
 	res := &RedrawResult{Rows: t.n()}
 	if opt.By == "" {
-		g := v.colouring()
-		res.Groups = len(g.Groups)
+		res.Groups = len(v.colouring().Groups)
 		if v.Labels != nil {
 			res.Matched = t.n()
 		}
 	} else if err := colourPlaced(&v, t, table, st, opt, res, obs); err != nil {
-		return nil, err
+		return MapView{}, nil, err
 	}
-	v.PointSize, v.Opacity = opt.PointSize, opt.Opacity
-	if opt.Title != "" {
-		v.Title = opt.Title
-	}
-	if err := WriteMaps(out, v, obs); err != nil {
-		return nil, err
-	}
-	res.Image, res.Page = filepath.Join(out, FileMap), filepath.Join(out, FileMapPage)
-	return res, nil
+	return v, res, nil
 }
 
 // colourPlaced colours the placed rows of v (the rows after the reference's)
