@@ -1,15 +1,10 @@
 package nightjar
 
 import (
-	"encoding/json"
-	"fmt"
-	"io"
 	"math"
-	"os"
 	"runtime"
 	"slices"
 
-	"nightjar/checkpoint"
 	"nightjar/internal/par"
 )
 
@@ -99,29 +94,9 @@ func newPlaceReport(s PlaceSettings, ref *reference, threads int) PlaceReport {
 }
 
 // ReadPlaceReport reads a placement's report.json.
-func ReadPlaceReport(path string) (*PlaceReport, error) {
-	b, err := os.ReadFile(path)
-	if err != nil {
-		return nil, err
-	}
-	var rep PlaceReport
-	if err := json.Unmarshal(b, &rep); err != nil {
-		return nil, fmt.Errorf("reading %s: %w", path, err)
-	}
-	return &rep, nil
-}
+func ReadPlaceReport(path string) (*PlaceReport, error) { return readJSONFile[PlaceReport](path) }
 
-func writePlaceReport(path string, rep *PlaceReport) error {
-	b, err := json.MarshalIndent(rep, "", "  ")
-	if err != nil {
-		return fmt.Errorf("encoding report: %w", err)
-	}
-	b = append(b, '\n')
-	if err := checkpoint.AtomicWrite(path, func(w io.Writer) error { _, err := w.Write(b); return err }); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	return nil
-}
+func writePlaceReport(path string, rep *PlaceReport) error { return writeJSONFile(path, rep) }
 
 // mapK is the neighbourhood of the map accuracy (10-NN, as the run's label
 // accuracy — common practice).

@@ -5,7 +5,6 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"io"
 	"io/fs"
 	"os"
 	"path/filepath"
@@ -51,14 +50,7 @@ func readPlaceState(dir string) (*placeState, error) {
 }
 
 func writePlaceState(dir string, st *placeState) error {
-	b, err := json.MarshalIndent(st, "", "  ")
-	if err != nil {
-		return err
-	}
-	return checkpoint.AtomicWrite(filepath.Join(dir, FileStateDir), func(w io.Writer) error {
-		_, err := w.Write(append(b, '\n'))
-		return err
-	})
+	return writeJSONFile(filepath.Join(dir, FileStateDir), st)
 }
 
 // IsPlacement tells whether dir holds a placement (or a shard of one) made

@@ -3,7 +3,6 @@ package nightjar
 import (
 	"encoding/json"
 	"fmt"
-	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -11,7 +10,6 @@ import (
 	"strings"
 
 	"nightjar/bench"
-	"nightjar/checkpoint"
 )
 
 // FilePrediction is the name of the prediction file nightjar bench
@@ -103,17 +101,7 @@ type RungQuality struct {
 }
 
 // WritePredictionFile writes p as indented JSON to path, atomically.
-func WritePredictionFile(path string, p *PredictionFile) error {
-	b, err := json.MarshalIndent(p, "", "  ")
-	if err != nil {
-		return fmt.Errorf("encoding %s: %w", path, err)
-	}
-	b = append(b, '\n')
-	if err := checkpoint.AtomicWrite(path, func(w io.Writer) error { _, err := w.Write(b); return err }); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	return nil
-}
+func WritePredictionFile(path string, p *PredictionFile) error { return writeJSONFile(path, p) }
 
 // ReadPredictionFile reads a prediction file. Errors are *SettingError
 // naming the option "prediction", so that the command line reports them as

@@ -114,24 +114,32 @@ func newReport(s Settings, rt Runtime) Report {
 }
 
 // ReadReport reads a report.json.
-func ReadReport(path string) (*Report, error) {
+func ReadReport(path string) (*Report, error) { return readJSONFile[Report](path) }
+
+// readJSONFile reads the JSON file at path into a new T.
+func readJSONFile[T any](path string) (*T, error) {
 	b, err := os.ReadFile(path)
 	if err != nil {
 		return nil, err
 	}
-	var rep Report
-	if err := json.Unmarshal(b, &rep); err != nil {
+	v := new(T)
+	if err := json.Unmarshal(b, v); err != nil {
 		return nil, fmt.Errorf("reading %s: %w", path, err)
 	}
-	return &rep, nil
+	return v, nil
 }
 
 // writeReport writes rep as indented JSON, atomically.
 func writeReport(path string, rep *Report) error {
 	rep.Prediction.measure(rep)
-	b, err := json.MarshalIndent(rep, "", "  ")
+	return writeJSONFile(path, rep)
+}
+
+// writeJSONFile writes v as indented JSON to path, atomically.
+func writeJSONFile(path string, v any) error {
+	b, err := json.MarshalIndent(v, "", "  ")
 	if err != nil {
-		return fmt.Errorf("encoding report: %w", err)
+		return fmt.Errorf("encoding %s: %w", path, err)
 	}
 	b = append(b, '\n')
 	if err := checkpoint.AtomicWrite(path, func(w io.Writer) error { _, err := w.Write(b); return err }); err != nil {
