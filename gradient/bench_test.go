@@ -156,3 +156,35 @@ func BenchmarkStep(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkGridSettings puts grid settings side by side on the same maps
+// (repulsion only, 2 threads): the node spacing δ and the interpolation order
+// p set the accuracy (TestGridAccuracy) and the cost, about M² log M for the
+// transforms with M ≈ width/δ and N·p² for spreading and gathering.
+func BenchmarkGridSettings(b *testing.B) {
+	settings := []struct {
+		order   int
+		spacing float64
+		min     int
+	}{
+		{5, 0.25, 160}, {5, 0.4, 160}, {5, 0.4, 64}, {4, 0.35, 160}, {6, 0.45, 64},
+	}
+	for _, n := range []int{20000, 100000, 1000000} {
+		y := benchY(n, 2)
+		for _, s := range settings {
+			b.Run(fmt.Sprintf("N=%d/p=%d/spacing=%v/min=%d", n, s.order, s.spacing, s.min), func(b *testing.B) {
+				params := Params{Dims: 2, Dof: 1, Method: Grid, Threads: 2, GridOrder: s.order, GridSpacing: s.spacing, GridMin: s.min}
+				e, err := newEngine(core.CSR{N: n}, params)
+				if err != nil {
+					b.Fatal(err)
+				}
+				e.repulsion(y)
+				b.ResetTimer()
+				for range b.N {
+					e.repulsion(y)
+				}
+				b.ReportMetric(float64(e.grid.m), "nodes/axis")
+			})
+		}
+	}
+}
