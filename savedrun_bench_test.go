@@ -49,10 +49,32 @@ func BenchmarkSavedRun(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	for _, m := range []gradient.Method{gradient.Tree, gradient.Grid} {
-		b.Run(fmt.Sprintf("N=%d/%v", n, m), func(b *testing.B) {
+	var lo, hi [2]float64
+	for i := 0; i < n; i++ {
+		for c := range 2 {
+			lo[c], hi[c] = min(lo[c], st.Y[2*i+c]), max(hi[c], st.Y[2*i+c])
+		}
+	}
+	b.Logf("%d rows, map width %.1f × %.1f", n, hi[0]-lo[0], hi[1]-lo[1])
+	cases := []struct {
+		method         gradient.Method
+		order, gridMin int
+		spacing        float64
+	}{
+		{gradient.Tree, 0, 0, 0},
+		{gradient.Grid, 0, 0, 0},
+		{gradient.Grid, 5, 160, 0.25},
+		{gradient.Grid, 5, 64, 0.4},
+	}
+	for _, c := range cases {
+		name := fmt.Sprintf("N=%d/%v", n, c.method)
+		if c.order > 0 {
+			name += fmt.Sprintf("/p=%d/spacing=%v/min=%d", c.order, c.spacing, c.gridMin)
+		}
+		b.Run(name, func(b *testing.B) {
 			params := gradient.DefaultParams(n)
-			params.Iterations, params.EarlyIterations, params.Method = 1<<30, 0, m
+			params.Iterations, params.EarlyIterations, params.Method = 1<<30, 0, c.method
+			params.GridOrder, params.GridMin, params.GridSpacing = c.order, c.gridMin, c.spacing
 			params.Threads = 2
 			o, err := gradient.New(*P, st.Y, params)
 			if err != nil {

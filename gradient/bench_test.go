@@ -188,3 +188,45 @@ func BenchmarkGridSettings(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkMemoryRead is the floor for the attractive pass: a streaming read
+// of 1 GiB (a P of 134 million entries at 8 bytes: a 4-byte column and a
+// 4-byte value), summed by one and by two threads. b.SetBytes makes the
+// benchmark print the bandwidth (MB/s); the attractive pass at N rows reads
+// 8·nnz(P) bytes plus the map, so nnz·8/bandwidth is the least it can take.
+func BenchmarkMemoryRead(b *testing.B) {
+	const words = 1 << 28 // 1 GiB of float32
+	data := make([]float32, words)
+	for i := range data {
+		data[i] = float32(i & 1023)
+	}
+	for _, threads := range []int{1, 2} {
+		b.Run(fmt.Sprintf("threads=%d", threads), func(b *testing.B) {
+			b.SetBytes(4 * words)
+			sums := make([]float32, threads)
+			for range b.N {
+				done := make(chan struct{})
+				for t := range threads {
+					go func() {
+						part := data[t*words/threads : (t+1)*words/threads]
+						var s0, s1, s2, s3 float32
+						for k := 0; k+3 < len(part); k += 4 {
+							s0 += part[k]
+							s1 += part[k+1]
+							s2 += part[k+2]
+							s3 += part[k+3]
+						}
+						sums[t] = s0 + s1 + s2 + s3
+						done <- struct{}{}
+					}()
+				}
+				for range threads {
+					<-done
+				}
+			}
+			if sums[0] == 0 {
+				b.Fatal("nothing read")
+			}
+		})
+	}
+}

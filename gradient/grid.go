@@ -54,14 +54,20 @@ import (
 // FFT-friendly value), so the spectra are recomputed only when they change.
 
 // Defaults of the grid (Params.GridMin, GridOrder, GridSpacing), chosen from
-// the accuracy and speed measured in TestGridAccuracy and BenchmarkRepulsion.
+// the accuracy measured in TestGridAccuracy (force error 4e-3 at δ = 0.4,
+// about Barnes–Hut's at θ = 0.5) and the speed measured side by side in
+// BenchmarkGridSettings and, on real maps, BenchmarkSavedRun: the transforms
+// cost about (width/δ)² log(width/δ), so δ = 0.4 needs 2.6 times fewer nodes
+// than δ = 0.25. The minimum size only matters while the map is narrower
+// than GridMin·δ (early in a run, or a small table): 64 nodes keep such maps
+// finer than δ without the fixed cost of a larger grid.
 const (
-	DefaultGridMin     = 160  // minimum nodes per axis
-	DefaultGridOrder   = 5    // interpolation nodes per axis around a point
-	DefaultGridSpacing = 0.25 // largest node spacing, map units
-	gridColBlock       = 8    // FFT columns per parallel block (also the Z reduction block)
-	gridRowBlock       = 8    // FFT rows per parallel block
-	gridSpreadRows     = 8    // node rows per spreading block (≥ GridOrder − 1)
+	DefaultGridMin     = 64  // minimum nodes per axis
+	DefaultGridOrder   = 5   // interpolation nodes per axis around a point
+	DefaultGridSpacing = 0.4 // largest node spacing, map units
+	gridColBlock       = 8   // FFT columns per parallel block (also the Z reduction block)
+	gridRowBlock       = 8   // FFT rows per parallel block
+	gridSpreadRows     = 8   // node rows per spreading block (≥ GridOrder − 1)
 )
 
 // gridMaxNodes is the default cap on the nodes per axis, M (fftGrid.maxNodes):
@@ -202,6 +208,12 @@ func (g *fftGrid) setup(y []float64) {
 		m++
 	}
 	g.lo = [2]float64{centre[0] - float64(m-1)*delta/2, centre[1] - float64(m-1)*delta/2}
+	g.resize(m, delta)
+}
+
+// resize sets M and δ, marks the kernel spectra stale if either changed and
+// sizes the buffers for M.
+func (g *fftGrid) resize(m int, delta float64) {
 	if m == g.m && delta == g.delta {
 		return
 	}
@@ -246,11 +258,16 @@ func growComplex(s []complex128, n int) []complex128 {
 	return s[:n]
 }
 
-// kernelSpectra samples the three kernels on node offsets and keeps their
-// 2-D spectra: K1 = 1/(1+d²), which is even, so its spectrum is real, and
+// kernelSpectra samples the kernels on node offsets and keeps their 2-D
+// spectra: K1 = 1/(1+d²), which is even, so its spectrum is real, and
 // Kx = K2·d_x, Ky = K2·d_y (K2 = K1²), which are odd, so their spectra are
 // imaginary. Circulant embedding: offset u and u − 2M are the same sample;
 // offset M is never needed and set to 0, which keeps the symmetry exact.
+//
+// Two symmetries halve the work: K1 and Kx are even in the row offset, so
+// only rows 0…M are transformed and the others copied; and on a square grid
+// Ky is Kx transposed, so K̂y(f, g) = K̂x(g, f), with K̂x odd in its first
+// argument giving the rows of the half spectrum beyond M.
 func (g *fftGrid) kernelSpectra() {
 	m, m2, mc := g.m, g.m2, g.m+1
 	delta := g.delta
@@ -261,23 +278,20 @@ func (g *fftGrid) kernelSpectra() {
 		return u
 	}
 	scratch := g.spec[0] // overwritten by every convolve anyway
-	for k := range g.ks {
-		par.Blocks(m2, gridRowBlock, g.threads, func(w, _, lo, hi int) {
+	for k := range 2 {
+		par.Blocks(mc, gridRowBlock, g.threads, func(w, _, lo, hi int) {
 			wk := &g.workers[w]
 			for v := lo; v < hi; v++ {
-				dv := signed(v)
+				dv := v
 				for u := 0; u < m2; u++ {
 					du := signed(u)
 					var val float64
 					if v != m && u != m {
 						k1 := 1 / (1 + float64(du*du+dv*dv)*delta*delta)
-						switch k {
-						case 0:
+						if k == 0 {
 							val = k1
-						case 1:
+						} else {
 							val = k1 * k1 * float64(du) * delta
-						case 2:
-							val = k1 * k1 * float64(dv) * delta
 						}
 					}
 					wk.row[u] = val
@@ -285,6 +299,9 @@ func (g *fftGrid) kernelSpectra() {
 				wk.rfft.Coefficients(scratch[v*mc:(v+1)*mc], wk.row)
 			}
 		})
+		for v := mc; v < m2; v++ {
+			copy(scratch[v*mc:(v+1)*mc], scratch[(m2-v)*mc:(m2-v+1)*mc])
+		}
 		par.Blocks(mc, 1, g.threads, func(w, _, c, _ int) {
 			wk := &g.workers[w]
 			col := wk.cols[:m2]
@@ -301,6 +318,18 @@ func (g *fftGrid) kernelSpectra() {
 			}
 		})
 	}
+	kx, ky := g.ks[1], g.ks[2]
+	par.Blocks(m2, gridRowBlock, g.threads, func(_, _, lo, hi int) {
+		for r := lo; r < hi; r++ {
+			for c := 0; c < mc; c++ {
+				if r <= m {
+					ky[r*mc+c] = kx[c*mc+r]
+				} else {
+					ky[r*mc+c] = -kx[c*mc+m2-r]
+				}
+			}
+		}
+	})
 }
 
 // spread computes the stencil and Lagrange weights of every point, orders

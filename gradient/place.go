@@ -27,7 +27,7 @@ type PlaceParams struct {
 	// Theta is the Barnes–Hut opening angle of the tree walks, [0, 2].
 	Theta float64
 	// GridSpacing is the largest node spacing of the grid in map units
-	// (0 = DefaultGridSpacing); GridOrder the interpolation nodes per axis
+	// (0 = placeGridSpacing, 0.25); GridOrder the interpolation nodes per axis
 	// (0 = DefaultGridOrder).
 	GridSpacing float64
 	GridOrder   int
@@ -244,6 +244,11 @@ type nodeGrid struct {
 	val []float64 // m×m nodes × 3 values (Z, Fx, Fy)
 }
 
+// placeGridSpacing is the default node spacing of the placement's node grid.
+// It is finer than the optimiser's (DefaultGridSpacing): its node values are
+// computed once, by the tree, so fine nodes cost little there.
+const placeGridSpacing = 0.25
+
 // nodeGridMargin is the margin added on every side of the reference's
 // bounding square, as a fraction of its side: new points lie among their
 // reference neighbours, and the few pushed out beyond it walk the tree.
@@ -251,7 +256,11 @@ const nodeGridMargin = 0.05
 
 // newNodeGrid computes the node values of f's 2-D reference map.
 func newNodeGrid(f *Field, params PlaceParams) *nodeGrid {
-	g, _ := newFFTGrid(0, Params{GridOrder: params.GridOrder, GridSpacing: params.GridSpacing})
+	spacing := params.GridSpacing
+	if spacing == 0 {
+		spacing = placeGridSpacing
+	}
+	g, _ := newFFTGrid(0, Params{GridOrder: params.GridOrder, GridSpacing: spacing})
 	g.maxNodes = gridMaxNodes
 	lo := [2]float64{math.Inf(1), math.Inf(1)}
 	hi := [2]float64{math.Inf(-1), math.Inf(-1)}
