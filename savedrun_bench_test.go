@@ -2,6 +2,7 @@ package nightjar
 
 import (
 	"fmt"
+	"math"
 	"os"
 	"testing"
 
@@ -11,8 +12,9 @@ import (
 
 // BenchmarkSavedRun times optimiser steps on the P and the newest state of a
 // real run directory (a finished or interrupted run with a saved P), for the
-// tree and grid repulsions in one process, so their ratio is measured on a
-// real map of real size. Set NIGHTJAR_BENCH_RUN to the run directory, e.g.
+// tree and grid repulsions and for grid settings (the defaults, and the
+// spacing and minimum size before and after 2026-12-03) in one process, so
+// their ratios are measured on a real map of real size. Set NIGHTJAR_BENCH_RUN to the run directory, e.g.
 //
 //	nightjar demo --rows 1000000 --run /tmp/demo1M
 //	NIGHTJAR_BENCH_RUN=/tmp/demo1M go test . -run XXX -bench SavedRun -benchtime 5x -count 3
@@ -49,7 +51,8 @@ func BenchmarkSavedRun(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	var lo, hi [2]float64
+	lo := [2]float64{math.Inf(1), math.Inf(1)}
+	hi := [2]float64{math.Inf(-1), math.Inf(-1)}
 	for i := 0; i < n; i++ {
 		for c := range 2 {
 			lo[c], hi[c] = min(lo[c], st.Y[2*i+c]), max(hi[c], st.Y[2*i+c])
