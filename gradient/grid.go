@@ -343,7 +343,7 @@ func (g *fftGrid) kernelSpectra() {
 func (g *fftGrid) spread(y []float64) {
 	n, p, m := g.n, g.p, g.m
 	inv := 1 / g.delta
-	rows := g.base // first the stencil row of each point, by point index
+	rows := g.base // the stencil row of each point by point index, for the sort; overwritten below with the stencils in slot order
 	par.Blocks(n, rowBlock, g.threads, func(_, _, lo, hi int) {
 		for i := lo; i < hi; i++ {
 			by, _ := g.stencil((y[2*i+1] - g.lo[1]) * inv)
