@@ -351,6 +351,7 @@ func (d *descent) join(pass int) {
 		mark := make(map[int32]struct{}, 4*s)
 		newC := make([]int32, 0, 2*s)
 		oldC := make([]int32, 0, 2*s)
+		both := make([]int32, 0, 4*s)
 		for v := lo; v < hi; v++ {
 			clear(mark)
 			newC, oldC = newC[:0], oldC[:0]
@@ -370,13 +371,24 @@ func (d *descent) join(pass int) {
 			}
 			oldC = add(d.fwdOld[v*s:v*s+int(d.fwdOldN[v])], oldC)
 			oldC = add(d.revOld[d.revOldOff[v]:d.revOldOff[v]+int64(d.revOldN[v])], oldC)
+			// Every new candidate meets the new ones after it and all the
+			// old ones: the rest of newC followed by oldC, four distances
+			// at a time.
+			both = append(append(both[:0], newC...), oldC...)
 			for i, a := range newC {
 				xa := d.x.Data[int(a)*dim : (int(a)+1)*dim]
-				for _, b := range newC[i+1:] {
-					d.offerPair(a, b, dist2(xa, d.x.Data[int(b)*dim:(int(b)+1)*dim]))
+				rest := both[i+1:]
+				j := 0
+				for ; j+4 <= len(rest); j += 4 {
+					b0, b1, b2, b3 := rest[j], rest[j+1], rest[j+2], rest[j+3]
+					d0, d1, d2, d3 := dist2x4(xa, d.row(b0), d.row(b1), d.row(b2), d.row(b3))
+					d.offerPair(a, b0, d0)
+					d.offerPair(a, b1, d1)
+					d.offerPair(a, b2, d2)
+					d.offerPair(a, b3, d3)
 				}
-				for _, b := range oldC {
-					d.offerPair(a, b, dist2(xa, d.x.Data[int(b)*dim:(int(b)+1)*dim]))
+				for _, b := range rest[j:] {
+					d.offerPair(a, b, dist2(xa, d.row(b)))
 				}
 			}
 		}
@@ -387,6 +399,12 @@ func (d *descent) join(pass int) {
 			pmu.Unlock()
 		}
 	})
+}
+
+// row returns row i of the matrix being searched.
+func (d *descent) row(i int32) []float32 {
+	dim := d.x.D
+	return d.x.Data[int(i)*dim : (int(i)+1)*dim]
 }
 
 // offerPair offers b to a's list and a to b's list at squared distance dd.

@@ -128,7 +128,14 @@ func exactDist2(a, b []float32) float32 {
 
 // dist2 returns the squared Euclidean distance between a and b, which must
 // have the same length. It is written with four accumulators in a fixed order
-// so that dist2(a, b) and dist2(b, a) are the same bits on every call.
+// so that dist2(a, b) and dist2(b, a) are the same bits on every call, and
+// so that dist2x4's SSE kernel (one accumulator lane per position mod 4) can
+// give the same bits: accumulator l sums the squares of positions ≡ l
+// (mod 4) of the first 4⌊n/4⌋, the rest go to s0 one by one, and the result
+// is (s0 + s1) + (s2 + s3). The float32 conversions round every product
+// before it is added: Go may otherwise fuse a multiply and an add on some
+// processors (the language specification allows it), which would change
+// the bits between machines.
 func dist2(a, b []float32) float32 {
 	var s0, s1, s2, s3 float32
 	n := len(a)
@@ -139,14 +146,14 @@ func dist2(a, b []float32) float32 {
 		d1 := a[i+1] - b[i+1]
 		d2 := a[i+2] - b[i+2]
 		d3 := a[i+3] - b[i+3]
-		s0 += d0 * d0
-		s1 += d1 * d1
-		s2 += d2 * d2
-		s3 += d3 * d3
+		s0 += float32(d0 * d0)
+		s1 += float32(d1 * d1)
+		s2 += float32(d2 * d2)
+		s3 += float32(d3 * d3)
 	}
 	for ; i < n; i++ {
 		d := a[i] - b[i]
-		s0 += d * d
+		s0 += float32(d * d)
 	}
 	return (s0 + s1) + (s2 + s3)
 }

@@ -154,7 +154,15 @@ func rpStart(g *core.Graph, x core.Matrix, trees, leaf int, seed uint64, threads
 				}
 				for a := 0; a < m; a++ {
 					xa := block[a*dim : (a+1)*dim]
-					for b := a + 1; b < m; b++ {
+					b := a + 1
+					for ; b+4 <= m; b += 4 {
+						d0, d1, d2, d3 := dist2x4(xa, block[b*dim:], block[(b+1)*dim:], block[(b+2)*dim:], block[(b+3)*dim:])
+						pd[a*m+b], pd[b*m+a] = d0, d0
+						pd[a*m+b+1], pd[(b+1)*m+a] = d1, d1
+						pd[a*m+b+2], pd[(b+2)*m+a] = d2, d2
+						pd[a*m+b+3], pd[(b+3)*m+a] = d3, d3
+					}
+					for ; b < m; b++ {
 						dd := dist2(xa, block[b*dim:(b+1)*dim])
 						pd[a*m+b], pd[b*m+a] = dd, dd
 					}
