@@ -87,8 +87,9 @@ func IsUserFault(err error) bool {
 		big   *knn.TooLargeError
 		zero  *knn.ZeroRowError
 		held  *checkpoint.HeldError
+		mem   *MemoryError
 	)
 	return errors.As(err, &set) || errors.As(err, &dir) || errors.As(err, &in) || errors.As(err, &perp) ||
 		errors.As(err, &bad) || errors.As(err, &ver) || errors.As(err, &kind) || errors.As(err, &magic) ||
-		errors.As(err, &big) || errors.As(err, &zero) || errors.As(err, &held)
+		errors.As(err, &big) || errors.As(err, &zero) || errors.As(err, &held) || errors.As(err, &mem)
 }

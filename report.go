@@ -74,12 +74,25 @@ type Report struct {
 	// PhaseMemory is the process's peak resident memory at the end of each
 	// phase run by this process: a running maximum, so the first phase whose
 	// figure reaches PeakMemoryBytes is the one that set the peak.
-	PhaseMemory  map[string]int64 `json:"peak_memory_bytes_after"`
-	SecondsTotal float64          `json:"seconds_total"`
+	PhaseMemory map[string]int64 `json:"peak_memory_bytes_after"`
+	// MemoryEstimate is EstimateMemory's figure for the run, set beside
+	// the measured peaks: made when the table was read, and again with
+	// the counted affinity entries.
+	MemoryEstimate *EstimatedMemory `json:"memory_estimate,omitempty"`
+	SecondsTotal   float64          `json:"seconds_total"`
 	// Prediction names the prediction the run was given
 	// (Runtime.Prediction) and, once finished, how it compares with it.
 	Prediction *PredictionCheck `json:"prediction,omitempty"`
 	Caution    string           `json:"caution"`
+}
+
+// EstimatedMemory is a MemoryEstimate as the report keeps it.
+type EstimatedMemory struct {
+	PeakBytes      int64            `json:"peak_bytes"`
+	PeakPhase      string           `json:"peak_phase"`
+	PhaseBytes     map[string]int64 `json:"phase_bytes"`
+	Entries        int64            `json:"affinity_entries"`
+	EntriesCounted bool             `json:"affinity_entries_counted"`
 }
 
 // Reduced describes the streamed PCA of Settings.Reduce: the map and the

@@ -334,8 +334,14 @@ func execute(ctx context.Context, run *checkpoint.Run, lock *checkpoint.Lock, s 
 	if err := j.readInput(resumed); err != nil {
 		return nil, err
 	}
+	if err := j.checkMemory(0); err != nil {
+		return nil, err
+	}
 	p, err := j.affinities()
 	if err != nil {
+		return nil, err
+	}
+	if err := j.checkMemory(int64(len(p.Vals))); err != nil {
 		return nil, err
 	}
 	if p.N <= exactKLRows {

@@ -152,6 +152,12 @@ type Runtime struct {
 	// ("" = none): the report names the prediction made for the run's
 	// settings and compares the run with it.
 	Prediction string `flag:"prediction" help:"a prediction.json of nightjar bench --predict: the report records the prediction for this run's settings beside the measured time and memory" topic:"running"`
+	// MemoryCeiling, in GiB (2³⁰ bytes), refuses a run whose estimated peak
+	// resident memory (EstimateMemory) is above it, with a *MemoryError:
+	// checked once the table is read, before the neighbour search, and
+	// again with the counted affinity entries before the optimiser. 0 means
+	// no check.
+	MemoryCeiling float64 `flag:"ram-ceiling" help:"refuse the run, before its neighbour search and again before its optimiser, when its estimated peak resident memory is above this many GiB (0 = no check; the estimate is in the log and the report either way)" topic:"running"`
 	// Force lets Resume continue although the input changed since the run
 	// began.
 	Force bool `flag:"-"`
@@ -221,6 +227,9 @@ func (r *Runtime) Validate() error {
 	}
 	if r.ScoreSample < 0 {
 		return bad("score-sample", "must be 0 or more, got %d", r.ScoreSample)
+	}
+	if !(r.MemoryCeiling >= 0 && r.MemoryCeiling < 1<<30) {
+		return bad("ram-ceiling", "must be 0 (no check) or a size in GiB, got %g", r.MemoryCeiling)
 	}
 	if r.Prediction != "" {
 		if _, err := ReadPredictionFile(r.Prediction); err != nil {

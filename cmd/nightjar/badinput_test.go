@@ -91,6 +91,35 @@ func TestBadInput(t *testing.T) {
 	}
 }
 
+// TestRAMCeiling: a run whose estimated peak memory is above --ram-ceiling
+// exits 2 once the table is read, its last line naming the table, its size
+// and the option, with the estimate noted before it, and no output under a
+// final name.
+func TestRAMCeiling(t *testing.T) {
+	dir := t.TempDir()
+	demo := writeDemoTable(t, dir, 300)
+	runDir := filepath.Join(dir, "run")
+	code, _, errs := runCLI("embed", "--input", demo, "--run", runDir, "--quiet", "--id", "id", "--ram-ceiling", "0.01")
+	if code != exitBadInput {
+		t.Fatalf("exit %d, want %d; stderr %q", code, exitBadInput, errs)
+	}
+	lines := strings.Split(strings.TrimSpace(errs), "\n")
+	last := lines[len(lines)-1]
+	for _, w := range []string{filepath.Base(demo), "300 rows × 50 features", "estimated peak memory", "--ram-ceiling"} {
+		if !strings.Contains(last, w) {
+			t.Errorf("last line %q does not mention %q", last, w)
+		}
+	}
+	if !strings.Contains(errs, "estimated peak memory: ") {
+		t.Errorf("no note of the estimate in %q", errs)
+	}
+	for _, f := range []string{fileEmbedding, fileMap, fileReport} {
+		if _, err := os.Stat(filepath.Join(runDir, f)); err == nil {
+			t.Errorf("%s left in the run directory after a refused run", f)
+		}
+	}
+}
+
 func TestBadUsage(t *testing.T) {
 	cases := [][]string{
 		{"embed"},
