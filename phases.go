@@ -299,6 +299,7 @@ func (j *job) recordSearch(method knn.Method, st knn.Stats) {
 		j.rep.Phases["neighbours_query"] = st.QuerySeconds
 	default:
 		j.rep.Phases["neighbours_trees"] = st.TreeSeconds
+		j.rep.Neighbours.Trees = st.Trees
 	}
 	j.rep.Phases["neighbours_probe"] = st.ProbeSeconds
 	for i, s := range st.PassSeconds {
@@ -315,8 +316,12 @@ func (j *job) recordSearch(method knn.Method, st knn.Stats) {
 		if st.Passes == 1 {
 			passes = "1 refinement pass"
 		}
-		j.obs.Note(fmt.Sprintf("neighbours: %s; estimated recall at the start and after each: %s (goal %g)",
-			passes, strings.Join(est, ", "), j.s.RecallGoal))
+		start := ""
+		if st.Trees > 0 {
+			start = fmt.Sprintf("a start of %d random projection trees, ", st.Trees)
+		}
+		j.obs.Note(fmt.Sprintf("neighbours: %s%s; estimated recall at the start and after each: %s (goal %g)",
+			start, passes, strings.Join(est, ", "), j.s.RecallGoal))
 	}
 }
 

@@ -56,6 +56,10 @@ type Report struct {
 		// estimated on the stopping sample before the first and after each.
 		Passes     *int      `json:"passes,omitempty"`
 		PassRecall []float64 `json:"pass_recall,omitempty"`
+		// Trees is the number of random projection trees NN-descent
+		// started from (more than the default 8 when the start's recall
+		// was low).
+		Trees int `json:"trees,omitempty"`
 	} `json:"neighbours"`
 	Affinities struct {
 		Seconds float64 `json:"seconds"`

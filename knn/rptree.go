@@ -126,15 +126,30 @@ func splitRows(x core.Matrix, rows []int32, side []bool, w []float32, r *rowRand
 // read of each row from memory instead of one per pair) and each row merges
 // its sorted leaf-mates into its list.
 func rpStart(g *core.Graph, x core.Matrix, trees, leaf int, seed uint64, threads int) {
-	n, k, dim := g.N, g.K, x.D
-	forest := make([]rpTree, trees)
-	par.Blocks(trees, 1, threads, func(_, t, _, _ int) {
-		forest[t] = buildRPTree(x, leaf, seed, uint64(t))
-	})
+	rpClear(g)
+	rpAddTrees(g, x, 0, trees, leaf, seed, threads)
+	rpFill(g, seed, threads)
+}
+
+// rpClear empties every list of g: index −1 at +Inf.
+func rpClear(g *core.Graph) {
 	inf := float32(math.Inf(1))
 	for i := range g.Index {
 		g.Index[i], g.Dist2[i] = -1, inf
 	}
+}
+
+// rpAddTrees merges into g's lists the leaf-mates of trees from to to−1
+// (each tree's randomness depends on seed and its number only). A list is
+// the top k of the union of what it held and the candidates under the order
+// (distance, index), so adding trees 8 to 11 to the lists of trees 0 to 7
+// gives the lists of trees 0 to 11 at once.
+func rpAddTrees(g *core.Graph, x core.Matrix, from, to, leaf int, seed uint64, threads int) {
+	k, dim := g.K, x.D
+	forest := make([]rpTree, to-from)
+	par.Blocks(len(forest), 1, threads, func(_, t, _, _ int) {
+		forest[t] = buildRPTree(x, leaf, seed, uint64(from+t))
+	})
 	for _, t := range forest {
 		leaves := len(t.start) - 1
 		par.Blocks(leaves, 16, threads, func(_, _, lo, hi int) {
@@ -182,7 +197,12 @@ func rpStart(g *core.Graph, x core.Matrix, trees, leaf int, seed uint64, threads
 			}
 		})
 	}
-	// Rows with fewer than k distinct leaf-mates in all trees: random fill.
+}
+
+// rpFill completes, with random rows at +Inf, the lists that have fewer
+// than k distinct leaf-mates in all trees.
+func rpFill(g *core.Graph, seed uint64, threads int) {
+	n, k := g.N, g.K
 	par.Blocks(n, descentBlock, threads, func(_, _, lo, hi int) {
 		seen := make(map[int32]struct{}, k)
 		for i := lo; i < hi; i++ {
