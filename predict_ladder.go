@@ -85,7 +85,7 @@ func PredictSetting(name string, s Settings, rows, threads int, runs []LadderRun
 // passRunOf reads the recalls an approximate search estimated before and
 // after its first pass (NaN when it has none).
 func passRunOf(rep *Report) bench.PassRun {
-	pr := bench.PassRun{N: float64(rep.Rows), Before: math.NaN(), After1: math.NaN(), Samples: knn.DefaultRefine().StopRows * rep.Neighbours.K}
+	pr := bench.PassRun{N: float64(rep.Rows), Before: math.NaN(), After1: math.NaN(), Samples: knn.DefaultRefine().StopRows * rep.Neighbours.K, Trees: rep.Neighbours.Trees}
 	if pr2 := rep.Neighbours.PassRecall; len(pr2) >= 2 {
 		pr.Before, pr.After1 = pr2[0], pr2[1]
 	}
@@ -96,14 +96,23 @@ func passRunOf(rep *Report) bench.PassRun {
 // the latter as seconds per pass times the passes predicted at rows.
 func splitPasses(laws []bench.PhaseLaw, samples []bench.RunSample, runs []LadderRun, passes []bench.PassRun,
 	rows int, goal float64) ([]bench.PhaseLaw, []bench.RunSample, []string) {
-	pf := bench.PredictPasses(passes, float64(rows), goal, knn.DefaultRefine().MaxPasses)
+	d := knn.DefaultDescent(0)
+	tg := bench.TreeGrowth{Base: d.Trees, Step: knn.TreeStep, Max: d.MaxTrees, Goal: d.StartRecall, Factor: bench.DefaultTreeFactor}
+	pf := bench.PredictPasses(passes, float64(rows), goal, d.MaxPasses, tg)
+	// The start's seconds are those of Base trees (each subsample's brought
+	// back below), times the predicted trees over Base.
+	start := bench.PhaseLaw{Name: PhaseNeighbourStart}
+	if pf.Trees > 0 {
+		start.Times, start.TimesHigh = float64(pf.Trees)/float64(tg.Base), float64(pf.TreesHigh)/float64(tg.Base)
+	}
 	var out []bench.PhaseLaw
 	for _, l := range laws {
 		if l.Name != PhaseNeighbours {
 			out = append(out, l)
 			continue
 		}
-		out = append(out, bench.PhaseLaw{Name: PhaseNeighbourStart, Law: l.Law},
+		start.Law = l.Law
+		out = append(out, start,
 			bench.PhaseLaw{Name: PhaseNeighbourPasses, Law: l.Law, Times: float64(pf.Passes), TimesHigh: float64(pf.High)})
 	}
 	i := 0
@@ -122,6 +131,9 @@ func splitPasses(laws []bench.PhaseLaw, samples []bench.RunSample, runs []Ladder
 		sm := &samples[i]
 		i++
 		sm.Phases[PhaseNeighbourStart] = math.Max(0, sm.Phases[PhaseNeighbours]-secs)
+		if t := r.Report.Neighbours.Trees; t > tg.Base && tg.Base > 0 {
+			sm.Phases[PhaseNeighbourStart] *= float64(tg.Base) / float64(t)
+		}
 		delete(sm.Phases, PhaseNeighbours)
 		if n > 0 {
 			sm.Phases[PhaseNeighbourPasses] = secs / float64(n)

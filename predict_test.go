@@ -178,7 +178,7 @@ func TestPredictSetting(t *testing.T) {
 	if len(sp.Quality) != 3 || sp.Quality[0].Rows != 10_000 || sp.TrustTrend == nil || math.Abs(*sp.TrustTrend-0.001) > 1e-6 {
 		t.Errorf("quality %+v, trend %v", sp.Quality, sp.TrustTrend)
 	}
-	if len(sp.Notes) != 1 || !strings.Contains(sp.Notes[0], "passes") {
+	if len(sp.Notes) != 1 || !strings.Contains(sp.Notes[0], "1 pass predicted") {
 		t.Errorf("notes %q", sp.Notes)
 	}
 	if est := EstimateRun(s, 1_000_000, 2, runs[:2], 30_000); !(est > runs[2].Seconds*0.8) {

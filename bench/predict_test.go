@@ -212,15 +212,41 @@ func TestMedianSpreadTrend(t *testing.T) {
 // rows, 0.905 → 0.99981 at 3·10⁴, 0.818 → 0.999 at 10⁵) predict the two
 // passes a run on 10⁶ rows needed (0.633 → 0.988 → 1.000).
 func TestPredictPasses(t *testing.T) {
-	runs := []PassRun{{1e4, 0.964, 1, 27000}, {3e4, 0.905, 0.99981, 27000}, {1e5, 0.818, 0.999, 27000}}
-	pf := PredictPasses(runs, 1e6, 0.99, 6)
-	if pf.Passes != 2 || pf.High < 2 || math.Abs(pf.Before-0.633) > 0.06 || pf.After1 > 0.99 {
+	runs := []PassRun{{1e4, 0.964, 1, 27000, 0}, {3e4, 0.905, 0.99981, 27000, 0}, {1e5, 0.818, 0.999, 27000, 0}}
+	pf := PredictPasses(runs, 1e6, 0.99, 6, TreeGrowth{})
+	if pf.Passes != 2 || pf.High < 2 || math.Abs(pf.Before-0.633) > 0.06 || pf.After1 > 0.99 || pf.Trees != 0 {
 		t.Errorf("1M rows: %+v", pf)
 	}
-	if pf := PredictPasses(runs, 1e5, 0.99, 6); pf.Passes != 1 {
+	if pf := PredictPasses(runs, 1e5, 0.99, 6, TreeGrowth{}); pf.Passes != 1 {
 		t.Errorf("100k rows: %+v", pf)
 	}
-	if pf := PredictPasses(runs[:1], 1e6, 0.99, 6); pf.Passes != 6 || !strings.Contains(pf.Note, "could not be predicted") {
+	if pf := PredictPasses(runs[:1], 1e6, 0.99, 6, TreeGrowth{}); pf.Passes != 6 || !strings.Contains(pf.Note, "could not be predicted") {
 		t.Errorf("one run: %+v", pf)
+	}
+}
+
+// TestPredictPassesGrowingStart: with the start grown 4 trees at a time
+// from 8 while its recall is below 0.8, the same runs predict what the
+// 1,000,000-row demo run did on 2026-12-03 (16 trees, start recall 0.845,
+// one pass to 0.9978); the 100,000-row runs keep 8 trees. A subsample that
+// had grown its start (16 trees, 0.845: the 1M run itself) is brought back
+// to 8 trees before the fit: 0.155/0.66² = 0.356, near the 0.367 that 8
+// trees gave on those rows.
+func TestPredictPassesGrowingStart(t *testing.T) {
+	tg := TreeGrowth{Base: 8, Step: 4, Max: 24, Goal: 0.8, Factor: DefaultTreeFactor}
+	runs := []PassRun{{1e4, 0.964, 1, 27000, 8}, {3e4, 0.905, 0.99981, 27000, 8}, {1e5, 0.818, 0.999, 27000, 8}}
+	pf := PredictPasses(runs, 1e6, 0.99, 6, tg)
+	if pf.Trees != 16 || pf.TreesHigh != 20 || pf.Passes != 1 || pf.Before < 0.8 || !strings.Contains(pf.Note, "16 trees") {
+		t.Errorf("1M rows: %+v", pf)
+	}
+	if pf := PredictPasses(runs, 1e5, 0.99, 6, tg); pf.Trees != 8 || pf.TreesHigh != 8 || pf.Passes != 1 {
+		t.Errorf("100k rows: %+v", pf)
+	}
+	grown := append(runs[1:], PassRun{1e6, 0.845, 0.9978, 27000, 16})
+	pf2 := PredictPasses(grown, 3e6, 0.99, 6, tg)
+	flat := append(runs[1:], PassRun{1e6, 1 - 0.155/(DefaultTreeFactor*DefaultTreeFactor), 0.9978, 27000, 8})
+	pf3 := PredictPasses(flat, 3e6, 0.99, 6, tg)
+	if pf2.Trees != pf3.Trees || math.Abs(pf2.Before-pf3.Before) > 1e-12 {
+		t.Errorf("a grown run %+v, the same brought back by hand %+v", pf2, pf3)
 	}
 }
