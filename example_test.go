@@ -43,3 +43,30 @@ func Example() {
 	// 300 rows mapped to 2-D
 	// 10-NN label accuracy in the map above 0.95: true
 }
+
+// ExampleEstimateMemory sets the memory a run of the default settings will
+// need beside a machine's: 10⁶ and 10⁷ rows of 50 features, with the
+// affinity entries of the 1,000,000-row demo run (130,690,900) and ten
+// times as many.
+func ExampleEstimateMemory() {
+	s := nightjar.DefaultSettings()
+	for _, c := range []struct {
+		rows    int
+		entries int64
+	}{{1_000_000, 130_690_900}, {10_000_000, 1_306_909_000}} {
+		e := nightjar.EstimateMemory(c.rows, 50, s, c.entries)
+		fmt.Printf("%d rows: peak %.1f GiB in the %s phase\n", c.rows, float64(e.Peak)/(1<<30), e.PeakPhase)
+		for _, ph := range e.Phases {
+			fmt.Printf("  %-10s %5.1f GiB\n", ph.Phase, float64(ph.Bytes)/(1<<30))
+		}
+	}
+	// Output:
+	// 1000000 rows: peak 2.8 GiB in the optimiser phase
+	//   neighbours   2.0 GiB
+	//   affinities   2.2 GiB
+	//   optimiser    2.8 GiB
+	// 10000000 rows: peak 26.9 GiB in the optimiser phase
+	//   neighbours  19.1 GiB
+	//   affinities  21.2 GiB
+	//   optimiser   26.9 GiB
+}
