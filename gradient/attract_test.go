@@ -2,8 +2,8 @@ package gradient
 
 import (
 	"math"
-	"slices"
 	"math/rand/v2"
+	"slices"
 	"testing"
 )
 
