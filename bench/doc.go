@@ -83,7 +83,11 @@
 // stops once its estimated recall reaches a goal, so larger tables can need
 // more passes than the subsamples did: PredictPasses predicts them from the
 // recalls the runs estimated (the model is in its doc), and the passes'
-// phase is the time of one pass times their number.
+// phase is the time of one pass times their number. A search whose start
+// grows on a large table (more random projection trees while the start's
+// recall is low) is predicted the same way: PredictPasses also counts the
+// trees (TreeGrowth), and the start's phase is the time of the base trees
+// times their share.
 //
 // RoughSeconds makes the quick, unchecked estimate that keeps a ladder of
 // subsamples within a time budget.
