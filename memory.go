@@ -86,7 +86,17 @@ const AssumedEntriesPerRow = 1.6
 //	                                  codes, order, positions and nodes
 //
 // The exact neighbour search holds the features and the graph only (its
-// tiles are small). The HNSW start's index on its sample is not counted.
+// tiles are small). The HNSW start's index on its sample is not counted,
+// nor is reading the table (with its reduction, for a wide one): the
+// estimate is made once the table is read. For MNIST's 784 columns the
+// reading set the run's peak (518 MiB after reading, 615 MiB in all,
+// against 309 MiB estimated for the phases after it).
+//
+// Checked against the peaks measured on 2026-12-03 (bench/RESULTS.md):
+// 288 and 370 MiB estimated against 299 and 382 MiB at 70,000 and 100,000
+// demo rows; 2.78 GiB against 2.62 GiB at 1,000,000 (2,685 MiB in the
+// run's report); 3.02 GiB against 2.82 GiB for 1,000,000 document
+// embeddings.
 func EstimateMemory(rows, features int, s Settings, entries int64) MemoryEstimate {
 	n, d := int64(rows), int64(features)
 	k := int64(knn.Neighbours(s.Perplexity, rows))
