@@ -41,16 +41,18 @@ type MemoryPart struct {
 // MemorySlack multiplies the arrays' sum to give resident memory: the Go
 // runtime, garbage not yet collected and pages not yet handed back.
 // Measured with the command line (which sets Runtime.ReturnMemory) on
-// 2026-12-03: the 1,000,000-row demo held 2,344 MiB of arrays in its
-// optimiser and peaked at 2,685 MiB resident (×1.15), the 1,000,000
-// document embeddings 2,552 MiB and 2,890 MiB (×1.13). A library caller
+// 2026-12-03: the 1,000,000-row demo holds about 2,390 MiB of arrays in
+// its optimiser (the table of EstimateMemory) and peaked at 2,685 MiB
+// resident (×1.12), the 1,000,000 document embeddings 2,600 MiB and 2,890
+// MiB (×1.11), the 100,000-row demo with MemoryBase taken off 235 and 282
+// MiB (×1.20); 1.15 keeps the large runs on the safe side. A library caller
 // without ReturnMemory peaks higher (×1.17 more at 1,000,000 rows).
 const MemorySlack = 1.15
 
 // MemoryBase is added to every phase's estimate: the program, the Go
 // runtime and the outputs' buffers. Measured on 2026-12-03 with the command
 // line, the demo's peaks at 10,000, 70,000 and 100,000 rows (130, 299 and
-// 382 MiB) are its arrays times MemorySlack plus 100 to 110 MiB.
+// 382 MiB) are its arrays times MemorySlack plus 103 to 112 MiB.
 const MemoryBase = 100 << 20
 
 // AssumedEntriesPerRow is the number of affinity entries per row and
