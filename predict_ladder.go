@@ -59,7 +59,7 @@ func PredictSetting(name string, s Settings, rows, threads int, runs []LadderRun
 	}
 	scoresFrom(laws, runs)
 	if rs.Neighbours != knn.ByExact.String() {
-		laws, samples, sp.Notes = splitPasses(laws, samples, runs, passes, rows, rs.RecallGoal)
+		laws, samples, sp.Notes = splitPasses(laws, samples, runs, passes, rows, rs.RecallGoal, rs.Neighbours == knn.ByDescent.String())
 	}
 	fc := bench.ForecastRun(laws, samples, rows, bench.DefaultLimits)
 	sp.Seconds = rangeOf(fc.Seconds, 1)
@@ -93,11 +93,16 @@ func passRunOf(rep *Report) bench.PassRun {
 }
 
 // splitPasses replaces the neighbour phase by its start and its passes,
-// the latter as seconds per pass times the passes predicted at rows.
+// the latter as seconds per pass times the passes predicted at rows. trees
+// tells that the start is NN-descent's random projection trees, which grow
+// on a large table (HNSW's start does not).
 func splitPasses(laws []bench.PhaseLaw, samples []bench.RunSample, runs []LadderRun, passes []bench.PassRun,
-	rows int, goal float64) ([]bench.PhaseLaw, []bench.RunSample, []string) {
+	rows int, goal float64, trees bool) ([]bench.PhaseLaw, []bench.RunSample, []string) {
 	d := knn.DefaultDescent(0)
-	tg := bench.TreeGrowth{Base: d.Trees, Step: knn.TreeStep, Max: d.MaxTrees, Goal: d.StartRecall, Factor: bench.DefaultTreeFactor}
+	var tg bench.TreeGrowth
+	if trees {
+		tg = bench.TreeGrowth{Base: d.Trees, Step: knn.TreeStep, Max: d.MaxTrees, Goal: d.StartRecall, Factor: bench.DefaultTreeFactor}
+	}
 	pf := bench.PredictPasses(passes, float64(rows), goal, d.MaxPasses, tg)
 	// The start's seconds are those of Base trees (each subsample's brought
 	// back below), times the predicted trees over Base.
