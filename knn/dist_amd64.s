@@ -2,6 +2,18 @@
 
 #include "textflag.h"
 
+// REDUCE leaves (s0 + s1) + (s2 + s3) of the four lanes of acc in its lane
+// 0, through X4–X6.
+#define REDUCE(acc) \
+	MOVAPS  acc, X4 \
+	SHUFPS  $0x55, X4, X4 \
+	MOVHLPS acc, X5 \
+	MOVAPS  X5, X6 \
+	SHUFPS  $0x55, X6, X6 \
+	ADDSS   X4, acc \
+	ADDSS   X6, X5 \
+	ADDSS   X5, acc
+
 // func dist2x4SSE(a, b0, b1, b2, b3 *float32, n int) (d0, d1, d2, d3 float32)
 //
 // Four squared distances ‖a − bᵢ‖² over n float32 values, each in the order
@@ -81,44 +93,12 @@ loop1:
 	JNZ   loop1
 
 reduce:
-	// (s0 + s1) + (s2 + s3) of each accumulator, in lane 0.
-	MOVAPS  X0, X4
-	SHUFPS  $0x55, X4, X4
-	MOVHLPS X0, X5
-	MOVAPS  X5, X6
-	SHUFPS  $0x55, X6, X6
-	ADDSS   X4, X0
-	ADDSS   X6, X5
-	ADDSS   X5, X0
-	MOVSS   X0, d0+48(FP)
-
-	MOVAPS  X1, X4
-	SHUFPS  $0x55, X4, X4
-	MOVHLPS X1, X5
-	MOVAPS  X5, X6
-	SHUFPS  $0x55, X6, X6
-	ADDSS   X4, X1
-	ADDSS   X6, X5
-	ADDSS   X5, X1
-	MOVSS   X1, d1+52(FP)
-
-	MOVAPS  X2, X4
-	SHUFPS  $0x55, X4, X4
-	MOVHLPS X2, X5
-	MOVAPS  X5, X6
-	SHUFPS  $0x55, X6, X6
-	ADDSS   X4, X2
-	ADDSS   X6, X5
-	ADDSS   X5, X2
-	MOVSS   X2, d2+56(FP)
-
-	MOVAPS  X3, X4
-	SHUFPS  $0x55, X4, X4
-	MOVHLPS X3, X5
-	MOVAPS  X5, X6
-	SHUFPS  $0x55, X6, X6
-	ADDSS   X4, X3
-	ADDSS   X6, X5
-	ADDSS   X5, X3
-	MOVSS   X3, d3+60(FP)
+	REDUCE(X0)
+	MOVSS X0, d0+48(FP)
+	REDUCE(X1)
+	MOVSS X1, d1+52(FP)
+	REDUCE(X2)
+	MOVSS X2, d2+56(FP)
+	REDUCE(X3)
+	MOVSS X3, d3+60(FP)
 	RET
