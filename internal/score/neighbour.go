@@ -13,6 +13,9 @@ type NeighbourScores struct {
 	Trustworthiness float64 // see Trustworthiness
 	Continuity      float64 // see Continuity
 	Preservation    float64 // see Preservation
+	// LabelMap and LabelInput are LabelAccuracy at the same k in the map
+	// and in the input, when NeighbourhoodLabels was given labels (else 0).
+	LabelMap, LabelInput float64
 }
 
 // Neighbourhood computes trustworthiness, continuity and neighbourhood
@@ -20,7 +23,19 @@ type NeighbourScores struct {
 // distance computations, which are the whole cost: O(|S|·N·(D + dims))). See
 // Trustworthiness for the definitions, the arguments and the panics.
 func Neighbourhood(in, out Space, k int, sample []int32, threads int) NeighbourScores {
+	return NeighbourhoodLabels(in, out, k, sample, threads, nil)
+}
+
+// NeighbourhoodLabels is Neighbourhood that also gives, when labels is not
+// nil, LabelAccuracy(out, labels, k, …) and LabelAccuracy(in, labels, k, …)
+// from the same k nearest rows, the same values without computing every
+// distance twice. It panics as Neighbourhood does, and unless labels is nil
+// or has one entry per point.
+func NeighbourhoodLabels(in, out Space, k int, sample []int32, threads int, labels []string) NeighbourScores {
 	n := in.Len()
+	if labels != nil && len(labels) != n {
+		panic(fmt.Sprintf("score: %d labels for %d points", len(labels), n))
+	}
 	if out.Len() != n {
 		panic(fmt.Sprintf("score: the map has %d points, the input %d", out.Len(), n))
 	}
@@ -29,9 +44,10 @@ func Neighbourhood(in, out Space, k int, sample []int32, threads int) NeighbourS
 	}
 	rows := sampleRows(sample, n)
 
-	type part struct{ trust, cont, shared int64 }
+	type part struct{ trust, cont, shared, mapRight, inRight int64 }
 	parts := par.Map(len(rows), scoreBlock, threads, func() func(lo, hi int) part {
 		w := newRankWork(n, k)
+		votes := map[string]int{}
 		return func(lo, hi int) (p part) {
 			blk := rows[lo:hi]
 			distRows(in, blk, w.din[:len(blk)])
@@ -40,6 +56,14 @@ func Neighbourhood(in, out Space, k int, sample []int32, threads int) NeighbourS
 				out.DistRow(int(i), w.dout)
 				kin := w.nearest(din, int(i), w.kin)
 				kout := w.nearest(w.dout, int(i), w.kout)
+				if labels != nil {
+					if majority(kout, labels, votes) == labels[i] {
+						p.mapRight++
+					}
+					if majority(kin, labels, votes) == labels[i] {
+						p.inRight++
+					}
+				}
 				// U: in the map's k nearest, not in the input's; ranked in input space.
 				w.targets = setMinus(w.targets[:0], kout, kin)
 				p.trust += w.rankSum(din, int(i), w.targets) - int64(k)*int64(len(w.targets))
@@ -51,20 +75,26 @@ func Neighbourhood(in, out Space, k int, sample []int32, threads int) NeighbourS
 			return p
 		}
 	})
-	var trust, cont, shared int64
+	var trust, cont, shared, mapRight, inRight int64
 	for _, p := range parts { // block order; integer sums, exact anyway
 		trust += p.trust
 		cont += p.cont
 		shared += p.shared
+		mapRight += p.mapRight
+		inRight += p.inRight
 	}
 	s := float64(len(rows))
 	norm := 2 / (s * float64(k) * (2*float64(n) - 3*float64(k) - 1))
-	return NeighbourScores{
+	ns := NeighbourScores{
 		K: k, Rows: len(rows),
 		Trustworthiness: 1 - norm*float64(trust),
 		Continuity:      1 - norm*float64(cont),
 		Preservation:    float64(shared) / (s * float64(k)),
 	}
+	if labels != nil {
+		ns.LabelMap, ns.LabelInput = float64(mapRight)/s, float64(inRight)/s
+	}
+	return ns
 }
 
 // Trustworthiness returns T(k) of the map out for the input in (see the package

@@ -204,6 +204,44 @@ func TestNeighbourhoodAgainstSortReference(t *testing.T) {
 	}
 }
 
+// TestNeighbourhoodLabels: the label accuracies NeighbourhoodLabels takes
+// from the neighbour lists it already has are those of LabelAccuracy (whose
+// hand-worked test is below), on data with many exact ties, and its other
+// scores are Neighbourhood's.
+func TestNeighbourhoodLabels(t *testing.T) {
+	n, d := 300, 4
+	rng := rand.New(rand.NewPCG(6, 6))
+	x := core.Matrix{N: n, D: d, Data: make([]float32, n*d)}
+	for i := range x.Data {
+		x.Data[i] = float32(rng.IntN(4))
+	}
+	y := make([]float64, 2*n)
+	labels := make([]string, n)
+	for i := range n {
+		y[2*i] = float64(x.Data[i*d]) + 0.3*rng.NormFloat64()
+		y[2*i+1] = float64(x.Data[i*d+1]) + 0.3*rng.NormFloat64()
+		labels[i] = fmt.Sprint(x.Data[i*d+2] + x.Data[i*d]) // 7 labels
+	}
+	sample := Sample(n, 60, 3)
+	for _, k := range []int{1, 7, 10} {
+		in, out := InputSpace(x), MapSpace(y, 2)
+		got := NeighbourhoodLabels(in, out, k, sample, 2, labels)
+		plain := Neighbourhood(in, out, k, sample, 2)
+		wantMap := LabelAccuracy(out, labels, k, sample, 2)
+		wantIn := LabelAccuracy(in, labels, k, sample, 2)
+		if wantMap <= 0 || wantMap >= 1 || wantIn <= 0 || wantIn >= 1 || wantMap == wantIn {
+			t.Fatalf("k=%d: accuracies %v and %v do not tell the two spaces apart", k, wantMap, wantIn)
+		}
+		if got.LabelMap != wantMap || got.LabelInput != wantIn {
+			t.Errorf("k=%d: label accuracy map %v input %v, LabelAccuracy %v %v", k, got.LabelMap, got.LabelInput, wantMap, wantIn)
+		}
+		got.LabelMap, got.LabelInput = 0, 0
+		if got != plain {
+			t.Errorf("k=%d: %+v, Neighbourhood %+v", k, got, plain)
+		}
+	}
+}
+
 func TestNeighbourhoodThreadsBitIdentical(t *testing.T) {
 	x := randomMatrix(400, 6, 7)
 	rng := rand.New(rand.NewPCG(1, 1))
