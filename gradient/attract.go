@@ -13,30 +13,30 @@ package gradient
 func attractRowGo(y []float64, cs []int32, vs []float32, yx, yy, invA float64) (fx, fy float64) {
 	vs = vs[:len(cs)]
 	var fx0, fy0, fx1, fy1 float64
-	k := 0
-	for ; k+1 < len(cs); k += 2 {
-		j0, j1 := int(cs[k]), int(cs[k+1])
-		dx0, dy0 := yx-y[2*j0], yy-y[2*j0+1]
-		dx1, dy1 := yx-y[2*j1], yy-y[2*j1+1]
-		s0 := float64(vs[k]) / (1 + float64(float64(float64(dx0*dx0)+float64(dy0*dy0))*invA))
-		s1 := float64(vs[k+1]) / (1 + float64(float64(float64(dx1*dx1)+float64(dy1*dy1))*invA))
+	for k := 0; k+1 < len(cs); k += 2 {
+		s0, dx0, dy0 := attractTerm(y, cs[k], vs[k], yx, yy, invA)
+		s1, dx1, dy1 := attractTerm(y, cs[k+1], vs[k+1], yx, yy, invA)
 		fx0 += float64(s0 * dx0)
 		fy0 += float64(s0 * dy0)
 		fx1 += float64(s1 * dx1)
 		fy1 += float64(s1 * dy1)
 	}
-	return attractTail(y, cs[k:], vs[k:], yx, yy, invA, fx0, fy0, fx1, fy1)
+	return attractTail(y, cs, vs, yx, yy, invA, fx0, fy0, fx1, fy1)
 }
 
-// attractTail adds the last entry of an odd row (cs and vs hold at most
-// the row's entries after its pairs; only a last odd one is used) to the
-// even sums, and returns the even and odd sums added.
+// attractTerm returns p_ij w_ij^(1/α) and y_i − y_j for entry (j, v) of
+// the row at (yx, yy).
+func attractTerm(y []float64, j int32, v float32, yx, yy, invA float64) (s, dx, dy float64) {
+	i := 2 * int(j)
+	dx, dy = yx-y[i], yy-y[i+1]
+	return float64(v) / (1 + float64(float64(float64(dx*dx)+float64(dy*dy))*invA)), dx, dy
+}
+
+// attractTail adds the last entry of a row of odd length (cs and vs are
+// the whole row) to the even sums, and returns the even and odd sums added.
 func attractTail(y []float64, cs []int32, vs []float32, yx, yy, invA, fx0, fy0, fx1, fy1 float64) (fx, fy float64) {
-	if len(cs)%2 == 1 {
-		k := len(cs) - 1
-		j := int(cs[k])
-		dx, dy := yx-y[2*j], yy-y[2*j+1]
-		s := float64(vs[k]) / (1 + float64(float64(float64(dx*dx)+float64(dy*dy))*invA))
+	if k := len(cs) - 1; k%2 == 0 {
+		s, dx, dy := attractTerm(y, cs[k], vs[k], yx, yy, invA)
 		fx0 += float64(s * dx)
 		fy0 += float64(s * dy)
 	}
