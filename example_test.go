@@ -61,12 +61,14 @@ func ExampleEstimateMemory() {
 		}
 	}
 	// Output:
-	// 1000000 rows: peak 2.8 GiB in the optimiser phase
+	// 1000000 rows: peak 2.0 GiB in the optimiser phase
 	//   neighbours   2.0 GiB
-	//   affinities   2.2 GiB
-	//   optimiser    2.8 GiB
-	// 10000000 rows: peak 26.9 GiB in the optimiser phase
+	//   affinities   2.0 GiB
+	//   optimiser    2.0 GiB
+	//   scores       0.5 GiB
+	// 10000000 rows: peak 19.2 GiB in the optimiser phase
 	//   neighbours  19.1 GiB
-	//   affinities  21.2 GiB
-	//   optimiser   26.9 GiB
+	//   affinities  19.1 GiB
+	//   optimiser   19.2 GiB
+	//   scores       4.6 GiB
 }

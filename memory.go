@@ -70,7 +70,12 @@ const AssumedEntriesPerRow = 1.6
 // What each phase holds, in bytes (N rows, D features, k neighbours, E
 // entries, s = ⌈k/2⌉ samples of NN-descent):
 //
-//	features                          4·N·D, through every phase
+//	features                          4·N·D, while the neighbours are
+//	                                  searched; then on disk only
+//	                                  (features.njs), read back (8·N·D:
+//	                                  the file's bytes and the values)
+//	                                  for the optimiser's start and for
+//	                                  the scores
 //	neighbour graph                   8·N·k (int32 index, float32 distance)
 //	NN-descent work arrays            N·(k + 8·s + 8·s + 48): entry states,
 //	                                  forward and reverse samples, offsets,
@@ -78,8 +83,11 @@ const AssumedEntriesPerRow = 1.6
 //	                                  the row order
 //	affinities                        8·E + 8·(N+1) (int32 column, float32
 //	                                  value, int64 row offsets)
-//	affinities renumbered for the     as much again, while the optimiser
-//	optimiser's memory locality       starts and after
+//	affinities renumbered for the     4·E + 8·(N+1) more while the optimiser
+//	optimiser's memory locality       starts: the new columns beside P,
+//	                                  then the new values in the old
+//	                                  columns' place (gradient.NewConsume);
+//	                                  P's size alone after
 //	optimiser                         N·(48·dims + 16): the start, positions,
 //	                                  update, gains, gradient and repulsion
 //	                                  (float64), the order and its inverse;
@@ -131,9 +139,16 @@ func EstimateMemory(rows, features int, s Settings, entries int64) MemoryEstimat
 			opt.Bytes += n * (48 + 2*64)
 		}
 	}
+	// The optimiser's start reads the features back while P is held, before
+	// P is renumbered: whichever of the two is larger sets the phase.
+	extra := MemoryPart{"affinities renumbered", 4*e.Entries + 8*(n+1)}
+	if back := 8 * n * d; back > extra.Bytes {
+		extra = MemoryPart{"features read back for the start", back}
+	}
 	e.add("neighbours", search...)
-	e.add("affinities", feat, graph, p)
-	e.add("optimiser", feat, p, MemoryPart{"affinities renumbered", p.Bytes}, opt)
+	e.add("affinities", graph, p)
+	e.add("optimiser", p, extra, opt)
+	e.add("scores", MemoryPart{"features read back", 8 * n * d}, MemoryPart{"map", 8 * n * dims})
 	return e
 }
 

@@ -17,8 +17,12 @@ import (
 // NN-descent and the tree, 2-D: features 4·1,000·10 = 40,000 bytes, graph
 // 8·1,000·90 = 720,000, NN-descent's work arrays 1,000·(90 + 16·45 + 48)
 // = 858,000, affinities (1.6·90·1,000 = 144,000 entries assumed)
-// 8·144,000 + 8·1,001 = 1,160,008, the optimiser 1,000·(48·2 + 16) +
-// 1,000·(48 + 128) = 288,000.
+// 8·144,000 + 8·1,001 = 1,160,008, their renumbering 4·144,000 + 8·1,001
+// = 584,008 (more than the 8·1,000·10 = 80,000 of the features read back
+// for the start), the optimiser 1,000·(48·2 + 16) + 1,000·(48 + 128) =
+// 288,000; the scores read the features back (80,000) beside the map
+// (8·1,000·2 = 16,000). The features are not held after the neighbour
+// search.
 func TestEstimateMemoryHandWorked(t *testing.T) {
 	s := DefaultSettings()
 	s.Neighbours, s.Repulsion = "descent", "tree"
@@ -26,8 +30,9 @@ func TestEstimateMemoryHandWorked(t *testing.T) {
 	phase := func(sum float64) int64 { return int64(MemorySlack*sum) + MemoryBase }
 	want := map[string]int64{
 		"neighbours": phase(40_000 + 720_000 + 858_000),
-		"affinities": phase(40_000 + 720_000 + 1_160_008),
-		"optimiser":  phase(40_000 + 2*1_160_008 + 288_000),
+		"affinities": phase(720_000 + 1_160_008),
+		"optimiser":  phase(1_160_008 + 584_008 + 288_000),
+		"scores":     phase(80_000 + 16_000),
 	}
 	if e.Entries != 144_000 || e.Counted || e.Neighbours != 90 {
 		t.Fatalf("entries %d (counted %v), k %d; want 144000 assumed, k 90", e.Entries, e.Counted, e.Neighbours)

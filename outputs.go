@@ -34,11 +34,14 @@ func (j *job) finish(y []float64) error {
 	if j.rt.ScoreSample > 0 {
 		t1 := time.Now()
 		j.obs.Note(fmt.Sprintf("scoring the map on %d sampled rows", min(j.rt.ScoreSample, t.N)))
-		q := j.scoreRun(y, labels)
-		q.KL, q.KLMethod = finalKL(j.P, y, j.s, j.rep.Optimiser.KL)
-		j.rep.Quality = &q
-		j.rep.Phases["scores"] = time.Since(t1).Seconds()
-		j.rep.PhaseMemory["scores"] = peakMemory()
+		if q, err := j.scoreRun(y, labels); err != nil {
+			j.warn("no scores: " + err.Error())
+		} else {
+			q.KL, q.KLMethod = finalKL(j.P, y, j.s, j.rep.Optimiser.KL)
+			j.rep.Quality = &q
+			j.rep.Phases["scores"] = time.Since(t1).Seconds()
+			j.rep.PhaseMemory["scores"] = peakMemory()
+		}
 	}
 	j.rep.SecondsTotal = time.Since(j.start).Seconds()
 	j.rep.PeakMemoryBytes = peakMemory()

@@ -168,6 +168,7 @@ func (j *job) affinities() (CSR, error) {
 		return CSR{}, fmt.Errorf("%s: %w", j.s.Input, err)
 	}
 	if p, ok := j.loadP(); ok {
+		j.releaseFeatures()
 		j.obs.Note("affinities loaded from " + j.run.Path(fileP))
 		return *p, nil
 	}
@@ -184,6 +185,9 @@ func (j *job) affinities() (CSR, error) {
 		// on pages the process still holds (3.28 GB peak at 1,000,000 rows).
 		j.freeMemory()
 	}
+	// The features are not needed again until the optimiser's start: they
+	// leave memory while P is built (features.go).
+	j.releaseFeatures()
 	j.setStatus(checkpoint.StatusRunning, checkpoint.PhaseAffinities)
 	t0 := time.Now()
 	// The graph is saved (or was loaded), so its memory can hold the

@@ -61,13 +61,18 @@ func tableSpace(metric string, red *Reduced) scoreSpace {
 // scoreRun scores the finished map y of the job's table: in the table's
 // space, and for a reduced run also against the original features on the
 // sample (one more pass over the input).
-func (j *job) scoreRun(y []float64, labels []string) Quality {
-	t := j.table
+func (j *job) scoreRun(y []float64, labels []string) (Quality, error) {
+	t := *j.table // a copy, to hold the features read back without keeping them
+	x, err := j.features()
+	if err != nil {
+		return Quality{}, err
+	}
+	t.Matrix = x
 	q := scoreMap(t.Matrix, y, j.s.Dims, labels, scoreK, j.rt.ScoreSample, j.s.Seed, j.rt.Threads, tableSpace(j.s.Metric, j.rep.Reduced))
 	if j.rep.Reduced != nil {
 		t0 := time.Now()
 		rows := score.Sample(t.N, j.rt.ScoreSample, j.s.Seed+2)
-		o, err := sampleScores(j.s, j.rt.Threads, t, j.rep.Reduced, rows, y, q.K)
+		o, err := sampleScores(j.s, j.rt.Threads, &t, j.rep.Reduced, rows, y, q.K)
 		if err != nil {
 			j.warn("no scores against the original features: " + err.Error())
 		} else {
@@ -76,7 +81,7 @@ func (j *job) scoreRun(y []float64, labels []string) Quality {
 		}
 		q.Seconds += time.Since(t0).Seconds()
 	}
-	return q
+	return q, nil
 }
 
 // scoreK is the neighbourhood size of the scores (trustworthiness@10 is the

@@ -25,7 +25,11 @@ const startStream = 0x5ab5a3
 // recomputes the same start. A stop during it stops at once (nothing is
 // saved; the start is recomputed on resume).
 func (j *job) subsampleStart(P CSR) ([]float64, error) {
-	x, d, threads := j.table.Matrix, j.s.Dims, j.rt.Threads
+	x, err := j.features()
+	if err != nil {
+		return nil, err
+	}
+	d, threads := j.s.Dims, j.rt.Threads
 	n := x.N
 	m := min(n, j.s.StartRows)
 	t0 := time.Now()

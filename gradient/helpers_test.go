@@ -184,3 +184,8 @@ func sameBits(a, b []float64) int {
 	}
 	return -1
 }
+
+// cloneCSR returns a copy of p with storage of its own.
+func cloneCSR(p core.CSR) core.CSR {
+	return core.CSR{N: p.N, Offsets: slices.Clone(p.Offsets), Cols: slices.Clone(p.Cols), Vals: slices.Clone(p.Vals)}
+}

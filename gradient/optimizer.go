@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"runtime/debug"
 
 	"nightjar/internal/core"
 	"nightjar/internal/par"
@@ -64,9 +65,32 @@ type Optimizer struct {
 // The optimiser keeps its own copy of P with the rows renumbered so that
 // neighbours sit near each other in memory (8 bytes per non-zero; about 1 GB
 // for 10^6 rows at perplexity 30). It does not keep p: a caller that has no
-// further use for P should drop it to save that memory. Y, State and Restore
-// use the input row order.
+// further use for P should drop it to save that memory, or hand it to
+// NewConsume. Y, State and Restore use the input row order.
 func New(p core.CSR, y0 []float64, params Params) (*Optimizer, error) {
+	return newOptimizer(&p, y0, params, false)
+}
+
+// NewConsume is New for a caller that hands P over: it renumbers P's rows
+// in P's own memory where it can, so that 1.5 times P is held at once
+// instead of twice (New keeps p intact beside its copy), and it scrambles
+// p. The caller must not use p afterwards and must hold no other reference
+// to its Cols or Vals (that memory is to be reclaimed). Between the two
+// halves of the renumbering it collects garbage and hands the freed pages
+// back to the operating system (debug.FreeOSMemory): without that, the
+// new values may be placed elsewhere in the heap while P's old columns
+// stay resident, and the process holds twice P after all. The optimiser
+// is the same as New's, bit for bit.
+func NewConsume(p core.CSR, y0 []float64, params Params) (*Optimizer, error) {
+	return newOptimizer(&p, y0, params, true)
+}
+
+// newOptimizer builds the optimiser; with consume it takes *p over and
+// clears it (permuteRowsConsume).
+//
+// P is read through p, never copied into a variable of its own: with
+// consume, no copy of its slices may outlive the renumbering.
+func newOptimizer(p *core.CSR, y0 []float64, params Params, consume bool) (*Optimizer, error) {
 	if err := params.Validate(p.N); err != nil {
 		return nil, err
 	}
@@ -80,16 +104,21 @@ func New(p core.CSR, y0 []float64, params Params) (*Optimizer, error) {
 	if err := allFinite("initial map", y0); err != nil {
 		return nil, err
 	}
-	perm := localityOrder(p)
+	perm := localityOrder(*p)
 	inv := par.Inverse(perm)
-	p = permuteRows(p, perm, inv, params.threads())
-	e, err := newEngine(p, params)
+	var q core.CSR
+	if consume {
+		q = permuteRowsConsume(p, perm, inv, params.threads(), debug.FreeOSMemory)
+	} else {
+		q = permuteRows(*p, perm, inv, params.threads())
+	}
+	e, err := newEngine(q, params)
 	if err != nil {
 		return nil, err
 	}
 	o := &Optimizer{
-		params: params, eng: e, n: p.N, d: params.Dims,
-		step: params.EffectiveLearningRate(p.N) / 4,
+		params: params, eng: e, n: q.N, d: params.Dims,
+		step: params.EffectiveLearningRate(q.N) / 4,
 		perm: perm, inv: inv,
 		y:      make([]float64, nd),
 		update: make([]float64, nd),
@@ -101,7 +130,7 @@ func New(p core.CSR, y0 []float64, params Params) (*Optimizer, error) {
 	for k := range o.gains {
 		o.gains[k] = 1
 	}
-	o.plogp, o.psum = sumPLogP(p)
+	o.plogp, o.psum = sumPLogP(q)
 	o.sumBlock = make([]float64, ((nd+elemBlock-1)/elemBlock)*params.Dims)
 	return o, nil
 }

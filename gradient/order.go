@@ -52,34 +52,87 @@ func localityOrder(p core.CSR) []int32 {
 // perm), and each row is sorted by column again. The result has its own
 // storage (as much again as p).
 func permuteRows(p core.CSR, perm, inv []int32, threads int) core.CSR {
-	n := p.N
-	q := core.CSR{N: n, Offsets: make([]int64, n+1), Cols: make([]int32, len(p.Cols)), Vals: make([]float32, len(p.Vals))}
-	longest := int64(0)
+	q := core.CSR{N: p.N, Offsets: permutedOffsets(p, perm), Cols: make([]int32, len(p.Cols)), Vals: make([]float32, len(p.Vals))}
+	eachRow(p, perm, threads, func(k int, row []uint64) {
+		renumberRow(row, p, perm[k], inv)
+		dst := q.Offsets[k]
+		for e, v := range row {
+			q.Cols[dst+int64(e)] = int32(v >> 32)
+			q.Vals[dst+int64(e)] = math.Float32frombits(uint32(v))
+		}
+	})
+	return q
+}
+
+// permuteRowsConsume returns what permuteRows returns for *p, but takes
+// p's arrays over to hold half as much at once: each row's values are first
+// written back in place in their new order while the new columns fill an
+// array of their own; p's columns are then dropped, and the values moved
+// to their new rows. At most p's columns, p's values and one new array are
+// alive at once, 1.5 times P instead of twice (about 0.5 GB less at 10^6
+// rows, 5 GB at 10^7). *p is cleared. No one else may hold its Cols or Vals,
+// or their memory cannot be reclaimed; collect reclaims the columns and
+// returns their pages (debug.FreeOSMemory) before the new values are
+// allocated.
+func permuteRowsConsume(p *core.CSR, perm, inv []int32, threads int, collect func()) core.CSR {
+	q := core.CSR{N: p.N, Offsets: permutedOffsets(*p, perm), Cols: make([]int32, len(p.Cols))}
+	eachRow(*p, perm, threads, func(k int, row []uint64) {
+		renumberRow(row, *p, perm[k], inv)
+		dst, src := q.Offsets[k], p.Offsets[perm[k]]
+		for e, v := range row {
+			q.Cols[dst+int64(e)] = int32(v >> 32)
+			p.Vals[src+int64(e)] = math.Float32frombits(uint32(v))
+		}
+	})
+	vals, off := p.Vals, p.Offsets
+	*p = core.CSR{}
+	collect()
+	q.Vals = make([]float32, len(vals))
+	par.Blocks(q.N, rowBlock, threads, func(_, _, lo, hi int) {
+		for k := lo; k < hi; k++ {
+			i := perm[k]
+			copy(q.Vals[q.Offsets[k]:q.Offsets[k+1]], vals[off[i]:off[i+1]])
+		}
+	})
+	return q
+}
+
+// permutedOffsets returns the row offsets of p with its rows in the order
+// perm.
+func permutedOffsets(p core.CSR, perm []int32) []int64 {
+	off := make([]int64, p.N+1)
 	for k, i := range perm {
-		l := p.Offsets[i+1] - p.Offsets[i]
-		q.Offsets[k+1] = q.Offsets[k] + l
-		longest = max(longest, l)
+		off[k+1] = off[k] + p.Offsets[i+1] - p.Offsets[i]
+	}
+	return off
+}
+
+// eachRow calls f for every new row k in parallel blocks, with a scratch
+// slice as long as row perm[k] of p that f may use.
+func eachRow(p core.CSR, perm []int32, threads int, f func(k int, row []uint64)) {
+	longest := int64(0)
+	for i := 0; i < p.N; i++ {
+		longest = max(longest, p.Offsets[i+1]-p.Offsets[i])
 	}
 	scratch := make([][]uint64, threads)
-	par.Blocks(n, rowBlock, threads, func(w, _, lo, hi int) {
+	par.Blocks(p.N, rowBlock, threads, func(w, _, lo, hi int) {
 		if scratch[w] == nil {
 			scratch[w] = make([]uint64, longest)
 		}
 		for k := lo; k < hi; k++ {
 			i := perm[k]
-			src, dst := p.Offsets[i], q.Offsets[k]
-			l := int(p.Offsets[i+1] - src)
-			// Pack (new column, value bits) so one integer sort orders the row.
-			row := scratch[w][:l]
-			for e := range l {
-				row[e] = uint64(inv[p.Cols[src+int64(e)]])<<32 | uint64(math.Float32bits(p.Vals[src+int64(e)]))
-			}
-			slices.Sort(row)
-			for e, v := range row {
-				q.Cols[dst+int64(e)] = int32(v >> 32)
-				q.Vals[dst+int64(e)] = math.Float32frombits(uint32(v))
-			}
+			f(k, scratch[w][:p.Offsets[i+1]-p.Offsets[i]])
 		}
 	})
-	return q
+}
+
+// renumberRow fills row with row i of p, each entry packed as (new column,
+// value bits) so that one integer sort orders the row by its new columns,
+// and sorts it.
+func renumberRow(row []uint64, p core.CSR, i int32, inv []int32) {
+	src := p.Offsets[i]
+	for e := range row {
+		row[e] = uint64(inv[p.Cols[src+int64(e)]])<<32 | uint64(math.Float32bits(p.Vals[src+int64(e)]))
+	}
+	slices.Sort(row)
 }

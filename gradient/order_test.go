@@ -3,6 +3,7 @@ package gradient
 import (
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 
 	"nightjar/internal/par"
@@ -47,6 +48,17 @@ func TestLocalityOrder(t *testing.T) {
 						t.Fatalf("n=%d: entry (%d, %d) = %v, want %v (present %v)", n, k, q.Cols[e], q.Vals[e], v, ok)
 					}
 				}
+			}
+			// The consuming renumbering gives the same arrays from a
+			// scrambled copy of p, and asks for the collection once.
+			collected := 0
+			given := cloneCSR(p)
+			c := permuteRowsConsume(&given, perm, inv, threads, func() { collected++ })
+			if given.Cols != nil || given.Vals != nil {
+				t.Fatalf("n=%d: permuteRowsConsume left the P it took over in place", n)
+			}
+			if collected != 1 || !slices.Equal(c.Offsets, q.Offsets) || !slices.Equal(c.Cols, q.Cols) || !slices.Equal(c.Vals, q.Vals) {
+				t.Fatalf("n=%d, %d threads: permuteRowsConsume differs from permuteRows (collections: %d)", n, threads, collected)
 			}
 		}
 	}
@@ -111,5 +123,40 @@ func TestOptimizerFirstStep(t *testing.T) {
 				}
 			}
 		})
+	}
+}
+
+// TestNewConsumeSameBits checks that an optimiser built by NewConsume takes
+// the same steps as one built by New, bit for bit, and that it scrambles
+// the P it was given (so the test would notice if it worked on a copy).
+func TestNewConsumeSameBits(t *testing.T) {
+	const n, dims = 2000, 2
+	rng := rand.New(rand.NewPCG(3, 14))
+	p := randomP(n, 10, rng)
+	y0 := clusteredY(n, dims, 5, 10, 1, rng)
+	params := DefaultParams(n)
+	params.Method, params.Threads, params.Iterations, params.EarlyIterations = Grid, 2, 30, 10
+	a, err := New(p, y0, params)
+	if err != nil {
+		t.Fatal(err)
+	}
+	given := cloneCSR(p)
+	b, err := NewConsume(given, y0, params)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if slices.Equal(given.Vals, p.Vals) {
+		t.Errorf("NewConsume left the values of the P it was given in place: it renumbered a copy")
+	}
+	for !a.Done() {
+		if err := a.Step(); err != nil {
+			t.Fatal(err)
+		}
+		if err := b.Step(); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if ya, yb := a.Y(), b.Y(); !slices.Equal(ya, yb) {
+		t.Fatalf("after %d steps the maps differ", a.Iteration())
 	}
 }
