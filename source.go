@@ -11,19 +11,21 @@ import (
 	"nightjar/ingest"
 )
 
-// Source is the table a run maps: a file (FromFile), or a table in memory
-// (FromMatrix, DemoSource) that Embed first saves into the run directory as
-// a Parquet file, so that Resume and Score find it there.
+// Source is the table a run maps: a file (FromFile), a table in memory
+// (FromMatrix), or generated data (DemoSource, DocumentSource), which Embed
+// first saves into the run directory as a file, so that Resume and Score
+// find it there.
 type Source struct {
 	path  string        // a table file, directory or glob, or "" for an in-memory table
 	more  []string      // further inputs read after path (FromFiles)
 	table *ingest.Table // an in-memory table, saved under name
 	name  string
-	make  func() (*ingest.Table, error) // builds the table once the run directory exists
 	// write writes a generated table file under name, whose id and label
-	// columns are id and label (DocumentSource).
+	// columns are id and label (DocumentSource, DemoSource), without
+	// holding the table; what says what it wrote.
 	write     func(io.Writer) error
 	id, label string
+	what      string
 }
 
 // FromFile returns the source of a Parquet, Arrow IPC or CSV table file
@@ -51,9 +53,9 @@ func FromMatrix(x Matrix, id, label *Column) Source {
 // data do not depend on threads). Embed saves it into the run directory as
 // survey.parquet.
 func DemoSource(rows int, seed uint64, threads int) Source {
-	return Source{name: "survey.parquet", make: func() (*ingest.Table, error) {
-		return bench.Demo(rows, seed, threads), nil
-	}}
+	return Source{name: "survey.parquet", id: "id", label: "population",
+		what:  fmt.Sprintf("%d rows × %d features of an invented survey", rows, bench.DemoFeatures),
+		write: func(w io.Writer) error { return bench.WriteDemo(w, rows, seed, threads) }}
 }
 
 // check refuses a file source whose file cannot be found.
@@ -99,7 +101,11 @@ func (src Source) resolve(dir string, obs Observer) (path, id, label string, err
 		if err := checkpoint.AtomicWrite(path, src.write); err != nil {
 			return "", "", "", fmt.Errorf("writing %s: %w", path, err)
 		}
-		obs.Note(fmt.Sprintf("demo: wrote %s", path))
+		if src.what != "" {
+			obs.Note(fmt.Sprintf("demo: wrote %s to %s", src.what, path))
+		} else {
+			obs.Note(fmt.Sprintf("demo: wrote %s", path))
+		}
 		if path, err = filepath.Abs(path); err != nil {
 			return "", "", "", err
 		}
@@ -107,12 +113,7 @@ func (src Source) resolve(dir string, obs Observer) (path, id, label string, err
 	}
 	t := src.table
 	if t == nil {
-		if src.make == nil {
-			return "", "", "", &SettingError{Msg: "empty source: use FromFile, FromMatrix or DemoSource"}
-		}
-		if t, err = src.make(); err != nil {
-			return "", "", "", err
-		}
+		return "", "", "", &SettingError{Msg: "empty source: use FromFile, FromMatrix or DemoSource"}
 	}
 	if t.N*t.D != len(t.Data) {
 		return "", "", "", &SettingError{Msg: fmt.Sprintf("matrix of %d×%d holds %d values", t.N, t.D, len(t.Data))}
@@ -120,9 +121,6 @@ func (src Source) resolve(dir string, obs Observer) (path, id, label string, err
 	path = filepath.Join(dir, src.name)
 	if err := writeTable(path, t); err != nil {
 		return "", "", "", err
-	}
-	if src.make != nil {
-		obs.Note(fmt.Sprintf("demo: wrote %d rows × %d features of an invented survey to %s", t.N, t.D, path))
 	}
 	if path, err = filepath.Abs(path); err != nil {
 		return "", "", "", err

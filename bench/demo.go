@@ -2,6 +2,7 @@ package bench
 
 import (
 	"fmt"
+	"io"
 	"math"
 	"math/rand/v2"
 
@@ -112,8 +113,48 @@ func Demo(n int, seed uint64, threads int) *ingest.Table {
 	if n < 1 {
 		panic(fmt.Sprintf("bench.Demo: n = %d, need n ≥ 1", n))
 	}
-	m := newDemoModel(seed)
+	g := newDemoGen(n, seed)
+	t := g.table(0, n, threads)
+	t.Hash = ingest.Fingerprint(t.Matrix)
+	return t
+}
 
+// WriteDemo writes the rows of Demo(n, seed, threads) to w as Parquet, the
+// bytes ingest.WriteTable writes for that table, but generated and written
+// part by part (demoWriteRows rows at a time: 26 MB of features), so that
+// ten million rows never sit in memory at once. w is not closed. It
+// returns an error if n < 1.
+func WriteDemo(w io.Writer, n int, seed uint64, threads int) error {
+	if n < 1 {
+		return fmt.Errorf("demo: %d rows, need at least 1", n)
+	}
+	g := newDemoGen(n, seed)
+	tw, err := ingest.NewTableWriter(w, demoFeatureNames(), &ingest.Column{Name: "id", Ints: []int64{}}, &ingest.Column{Name: "population"})
+	if err != nil {
+		return err
+	}
+	for lo := 0; lo < n; lo += demoWriteRows {
+		if err := tw.Write(g.table(lo, min(n, lo+demoWriteRows), threads)); err != nil {
+			return err
+		}
+	}
+	return tw.Close()
+}
+
+// demoWriteRows is the part WriteDemo generates at a time: a multiple of
+// demoBlock (so that every block has the generator it has in Demo) and of
+// ingest.WriteChunkRows (so that the row groups are WriteTable's). A
+// variable so that tests can make it small.
+var demoWriteRows = 2 * ingest.WriteChunkRows
+
+// demoGen draws the rows of one demo table.
+type demoGen struct {
+	m    *demoModel
+	pop  []uint8 // population of every row, 1 byte per row
+	seed uint64
+}
+
+func newDemoGen(n int, seed uint64) *demoGen {
 	// Population of every row: exact counts by largest remainder, then shuffled.
 	counts := demoCounts(n)
 	pop := make([]uint8, 0, n)
@@ -124,34 +165,44 @@ func Demo(n int, seed uint64, threads int) *ingest.Table {
 	}
 	shuffle := rand.New(rand.NewPCG(seed, 0x6f737472656c)) // "ostrel"
 	shuffle.Shuffle(n, func(i, j int) { pop[i], pop[j] = pop[j], pop[i] })
+	return &demoGen{m: newDemoModel(seed), pop: pop, seed: seed}
+}
 
+// table returns rows [lo, hi) of the table (lo a multiple of demoBlock),
+// without a hash.
+func (g *demoGen) table(lo, hi, threads int) *ingest.Table {
+	n := hi - lo
 	data := make([]float32, n*DemoFeatures)
 	labels := make([]string, n)
 	ids := make([]int64, n)
-	par.Blocks(n, demoBlock, threads, func(_, b, lo, hi int) {
+	first := lo / demoBlock
+	par.Blocks(n, demoBlock, threads, func(_, b, a, z int) {
 		// One generator per block, seeded by (seed, block): the rows do not
-		// depend on which goroutine takes the block.
-		rng := rand.New(rand.NewPCG(seed^0x9e3779b97f4a7c15, uint64(b)))
-		for i := lo; i < hi; i++ {
-			m.row(int(pop[i]), rng, data[i*DemoFeatures:(i+1)*DemoFeatures])
-			labels[i] = demoPops[pop[i]].name
-			ids[i] = int64(i + 1)
+		// depend on which goroutine takes the block, nor on the part.
+		rng := rand.New(rand.NewPCG(g.seed^0x9e3779b97f4a7c15, uint64(first+b)))
+		for r := a; r < z; r++ {
+			i := lo + r
+			g.m.row(int(g.pop[i]), rng, data[r*DemoFeatures:(r+1)*DemoFeatures])
+			labels[r] = demoPops[g.pop[i]].name
+			ids[r] = int64(i + 1)
 		}
 	})
+	return &ingest.Table{
+		Matrix:   core.Matrix{N: n, D: DemoFeatures, Data: data},
+		Features: demoFeatureNames(),
+		ID:       &ingest.Column{Name: "id", Ints: ids},
+		Label:    &ingest.Column{Name: "population", Strings: labels},
+		Format:   "demo",
+	}
+}
 
+// demoFeatureNames returns "f01" … "f50".
+func demoFeatureNames() []string {
 	features := make([]string, DemoFeatures)
 	for f := range features {
 		features[f] = fmt.Sprintf("f%02d", f+1)
 	}
-	mat := core.Matrix{N: n, D: DemoFeatures, Data: data}
-	return &ingest.Table{
-		Matrix:   mat,
-		Features: features,
-		ID:       &ingest.Column{Name: "id", Ints: ids},
-		Label:    &ingest.Column{Name: "population", Strings: labels},
-		Hash:     ingest.Fingerprint(mat),
-		Format:   "demo",
-	}
+	return features
 }
 
 // demoCounts splits n rows among demoPops by their shares, largest remainder

@@ -1,6 +1,7 @@
 package bench
 
 import (
+	"bytes"
 	"fmt"
 	"math"
 	"os"
@@ -224,5 +225,28 @@ func TestDemoRoundTripThroughIngest(t *testing.T) {
 	if !slices.Equal(back.Data, tb.Data) || !slices.Equal(back.Features, tb.Features) ||
 		!slices.Equal(back.Label.Strings, tb.Label.Strings) || !slices.Equal(back.ID.Ints, tb.ID.Ints) {
 		t.Error("table changed in the round trip")
+	}
+}
+
+// TestWriteDemoParts: the demo written part by part has the bytes of
+// ingest.WriteTable on Demo's whole table (the reference): three parts, the
+// last one short, each drawing its blocks with the generators Demo gives
+// them.
+func TestWriteDemoParts(t *testing.T) {
+	defer func(r int) { demoWriteRows = r }(demoWriteRows)
+	demoWriteRows = ingest.WriteChunkRows
+	n := 2*ingest.WriteChunkRows + 5000
+	var want, got bytes.Buffer
+	if err := ingest.WriteTable(&want, Demo(n, 7, 3)); err != nil {
+		t.Fatal(err)
+	}
+	if err := WriteDemo(&got, n, 7, 2); err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(got.Bytes(), want.Bytes()) {
+		t.Errorf("WriteDemo wrote %d bytes unlike the whole table's %d", got.Len(), want.Len())
+	}
+	if err := WriteDemo(&got, 0, 7, 2); err == nil {
+		t.Error("WriteDemo of 0 rows: no error")
 	}
 }

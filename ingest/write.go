@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"slices"
 
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/array"
@@ -85,13 +86,20 @@ func appendPass(bld array.Builder, c *Column, lo, hi int) {
 	}
 }
 
-// writeParquet writes n rows to w as Parquet with schema sc, one record per
-// WriteChunkRows rows, dictionary-encoding column dictCol only ("" = none); fill appends rows [lo, hi) to the record builder.
-func writeParquet(w io.Writer, sc *arrow.Schema, dictCol string, n int, fill func(rb *array.RecordBuilder, lo, hi int)) error {
+// parquetWriter writes records to a Parquet file as they come.
+type parquetWriter struct {
+	ew *errWriter
+	fw *pqarrow.FileWriter
+	rb *array.RecordBuilder
+}
+
+// newParquetWriter starts a Parquet file on w with schema sc,
+// dictionary-encoding column dictCol only ("" = none).
+func newParquetWriter(w io.Writer, sc *arrow.Schema, dictCol string) (*parquetWriter, error) {
 	seen := map[string]bool{}
 	for _, f := range sc.Fields() {
 		if seen[f.Name] {
-			return fmt.Errorf("writing Parquet: column name %q used twice", f.Name)
+			return nil, fmt.Errorf("writing Parquet: column name %q used twice", f.Name)
 		}
 		seen[f.Name] = true
 	}
@@ -107,27 +115,50 @@ func writeParquet(w io.Writer, sc *arrow.Schema, dictCol string, n int, fill fun
 	props := parquet.NewWriterProperties(opts...)
 	fw, err := pqarrow.NewFileWriter(sc, ew, props, pqarrow.DefaultWriterProps())
 	if err != nil {
-		return fmt.Errorf("writing Parquet: %w", err)
+		return nil, fmt.Errorf("writing Parquet: %w", err)
 	}
-	rb := array.NewRecordBuilder(memory.DefaultAllocator, sc)
-	defer rb.Release()
+	return &parquetWriter{ew: ew, fw: fw, rb: array.NewRecordBuilder(memory.DefaultAllocator, sc)}, nil
+}
+
+// write writes n rows, one record (and row group) per WriteChunkRows rows;
+// fill appends rows [lo, hi) to the record builder.
+func (p *parquetWriter) write(n int, fill func(rb *array.RecordBuilder, lo, hi int)) error {
 	for lo := 0; lo < n; lo += WriteChunkRows {
 		hi := min(n, lo+WriteChunkRows)
-		fill(rb, lo, hi)
-		rec := rb.NewRecord()
-		err := fw.Write(rec)
+		fill(p.rb, lo, hi)
+		rec := p.rb.NewRecord()
+		err := p.fw.Write(rec)
 		rec.Release()
 		if err != nil {
-			return fmt.Errorf("writing Parquet: %w", errors.Join(err, ew.err))
+			return fmt.Errorf("writing Parquet: %w", errors.Join(err, p.ew.err))
 		}
 	}
-	if err := fw.Close(); err != nil {
+	return nil
+}
+
+// close ends the file (w itself is not closed).
+func (p *parquetWriter) close() error {
+	p.rb.Release()
+	if err := p.fw.Close(); err != nil {
 		return fmt.Errorf("writing Parquet: %w", err)
 	}
-	if ew.err != nil {
-		return fmt.Errorf("writing Parquet: %w", ew.err)
+	if p.ew.err != nil {
+		return fmt.Errorf("writing Parquet: %w", p.ew.err)
 	}
 	return nil
+}
+
+// writeParquet writes n rows to w as Parquet with schema sc (see
+// newParquetWriter and parquetWriter.write).
+func writeParquet(w io.Writer, sc *arrow.Schema, dictCol string, n int, fill func(rb *array.RecordBuilder, lo, hi int)) error {
+	p, err := newParquetWriter(w, sc, dictCol)
+	if err != nil {
+		return err
+	}
+	if err := p.write(n, fill); err != nil {
+		return err
+	}
+	return p.close()
 }
 
 // WriteEmbedding writes an embedding as Parquet to w: the id column if id is non-nil
@@ -191,35 +222,87 @@ func WriteEmbedding(w io.Writer, id, label *Column, y []float64, dims int) error
 // row groups of WriteChunkRows. w is not closed. It returns an error if t.Features
 // does not have D names, t.Data does not have N×D values, or names clash.
 func WriteTable(w io.Writer, t *Table) error {
+	tw, err := NewTableWriter(w, t.Features, t.ID, t.Label)
+	if err != nil {
+		return err
+	}
+	if err := tw.Write(t); err != nil {
+		return err
+	}
+	return tw.Close()
+}
+
+// TableWriter writes a table as Parquet part by part (Write), for tables
+// made in pieces that are never held whole: the columns of WriteTable, one
+// row group per WriteChunkRows rows of a part. When every part but the last
+// holds a multiple of WriteChunkRows rows, the file has the bytes that
+// WriteTable writes for the whole table.
+type TableWriter struct {
+	p         *parquetWriter
+	features  []string
+	id, label *Column
+	first     int
+}
+
+// NewTableWriter starts the file on w. features names the feature columns;
+// id and label (nil for none) give the name, kind (Ints or text) and
+// nullability (Null non-nil: the column may hold nulls) of those columns,
+// and may hold no rows: each part brings its own. w is not closed by Close. It returns an error if
+// names clash.
+func NewTableWriter(w io.Writer, features []string, id, label *Column) (*TableWriter, error) {
+	var fields []arrow.Field
+	if id != nil {
+		fields = append(fields, passField(id, "id"))
+	}
+	if label != nil {
+		fields = append(fields, passField(label, "label"))
+	}
+	dictCol := ""
+	if label != nil {
+		dictCol = labelDict(label, fields[len(fields)-1])
+	}
+	first := len(fields)
+	for _, name := range features {
+		fields = append(fields, arrow.Field{Name: name, Type: arrow.PrimitiveTypes.Float32})
+	}
+	p, err := newParquetWriter(w, arrow.NewSchema(fields, nil), dictCol)
+	if err != nil {
+		return nil, err
+	}
+	return &TableWriter{p: p, features: features, id: id, label: label, first: first}, nil
+}
+
+// Write appends the rows of t, whose features must be those the writer was
+// started with and whose id and label columns must be present (with N
+// values each) exactly when they were given to NewTableWriter, of the same
+// kinds.
+func (tw *TableWriter) Write(t *Table) error {
 	if len(t.Features) != t.D {
 		return fmt.Errorf("writing table: %d feature names for D = %d", len(t.Features), t.D)
+	}
+	if !slices.Equal(t.Features, tw.features) {
+		return fmt.Errorf("writing table: a part's features (%d) are not the file's (%d)", len(t.Features), len(tw.features))
 	}
 	if len(t.Data) != t.N*t.D {
 		return fmt.Errorf("writing table: %d values for N×D = %d×%d", len(t.Data), t.N, t.D)
 	}
-	var fields []arrow.Field
-	if t.ID != nil {
-		if t.ID.Len() != t.N {
-			return fmt.Errorf("writing table: id has %d values for %d rows", t.ID.Len(), t.N)
+	for _, c := range []struct {
+		what      string
+		got, want *Column
+	}{{"id", t.ID, tw.id}, {"label", t.Label, tw.label}} {
+		switch {
+		case (c.got == nil) != (c.want == nil):
+			return fmt.Errorf("writing table: a part's %s column is present %v, the file's %v", c.what, c.got != nil, c.want != nil)
+		case c.got == nil:
+		case c.got.Len() != t.N:
+			return fmt.Errorf("writing table: %s has %d values for %d rows", c.what, c.got.Len(), t.N)
+		case (c.got.Ints != nil) != (c.want.Ints != nil):
+			return fmt.Errorf("writing table: a part's %s column is not of the file's kind (integer or text)", c.what)
+		case c.got.Null != nil && c.want.Null == nil:
+			return fmt.Errorf("writing table: a part's %s column may hold nulls, the file's may not", c.what)
 		}
-		fields = append(fields, passField(t.ID, "id"))
 	}
-	if t.Label != nil {
-		if t.Label.Len() != t.N {
-			return fmt.Errorf("writing table: label has %d values for %d rows", t.Label.Len(), t.N)
-		}
-		fields = append(fields, passField(t.Label, "label"))
-	}
-	dictCol := ""
-	if t.Label != nil {
-		dictCol = labelDict(t.Label, fields[len(fields)-1])
-	}
-	first := len(fields)
-	for _, name := range t.Features {
-		fields = append(fields, arrow.Field{Name: name, Type: arrow.PrimitiveTypes.Float32})
-	}
-	sc := arrow.NewSchema(fields, nil)
-	return writeParquet(w, sc, dictCol, t.N, func(rb *array.RecordBuilder, lo, hi int) {
+	return tw.p.write(t.N, func(rb *array.RecordBuilder, lo, hi int) {
 		c := 0
 		if t.ID != nil {
 			appendPass(rb.Field(c), t.ID, lo, hi)
@@ -229,7 +312,7 @@ func WriteTable(w io.Writer, t *Table) error {
 			appendPass(rb.Field(c), t.Label, lo, hi)
 		}
 		for j := 0; j < t.D; j++ {
-			fb := rb.Field(first + j).(*array.Float32Builder)
+			fb := rb.Field(tw.first + j).(*array.Float32Builder)
 			fb.Reserve(hi - lo)
 			for i := lo; i < hi; i++ {
 				fb.UnsafeAppend(t.Data[i*t.D+j])
@@ -237,3 +320,6 @@ func WriteTable(w io.Writer, t *Table) error {
 		}
 	})
 }
+
+// Close ends the file.
+func (tw *TableWriter) Close() error { return tw.p.close() }

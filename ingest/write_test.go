@@ -144,3 +144,62 @@ func TestWriteErrors(t *testing.T) {
 		}
 	}
 }
+
+// TestTableWriterParts: a table written in parts whose sizes are multiples
+// of WriteChunkRows has the bytes of WriteTable on the whole table (the
+// reference), and parts that do not fit the file are refused.
+func TestTableWriterParts(t *testing.T) {
+	n, d := 2*WriteChunkRows+77, 3
+	whole := &Table{Matrix: core.Matrix{N: n, D: d, Data: make([]float32, n*d)}, Features: []string{"a", "b", "c"},
+		ID: &Column{Name: "id", Ints: make([]int64, n)}, Label: &Column{Name: "kind", Strings: make([]string, n), Null: make([]bool, n)}}
+	for i := range n {
+		whole.ID.Ints[i] = int64(i)
+		whole.Label.Strings[i] = []string{"x", "y", "z"}[i%3]
+		whole.Label.Null[i] = i%11 == 0
+		for j := range d {
+			whole.Data[i*d+j] = float32(i) - 0.5*float32(j)
+		}
+	}
+	part := func(lo, hi int) *Table {
+		return &Table{Matrix: core.Matrix{N: hi - lo, D: d, Data: whole.Data[lo*d : hi*d]}, Features: whole.Features,
+			ID: &Column{Name: "id", Ints: whole.ID.Ints[lo:hi]}, Label: &Column{Name: "kind", Strings: whole.Label.Strings[lo:hi], Null: whole.Label.Null[lo:hi]}}
+	}
+	var want, got bytes.Buffer
+	if err := WriteTable(&want, whole); err != nil {
+		t.Fatal(err)
+	}
+	tw, err := NewTableWriter(&got, whole.Features, &Column{Name: "id", Ints: []int64{}}, &Column{Name: "kind", Null: []bool{}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range [][2]int{{0, WriteChunkRows}, {WriteChunkRows, n}} {
+		if err := tw.Write(part(r[0], r[1])); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := tw.Close(); err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(got.Bytes(), want.Bytes()) {
+		t.Errorf("written in two parts: %d bytes unlike WriteTable's %d", got.Len(), want.Len())
+	}
+
+	tw, err = NewTableWriter(&bytes.Buffer{}, whole.Features, &Column{Name: "id", Ints: []int64{}}, &Column{Name: "kind"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := part(0, 10)
+	for _, c := range []struct {
+		name string
+		t    *Table
+	}{
+		{"other features", &Table{Matrix: p.Matrix, Features: []string{"a", "b", "d"}, ID: p.ID, Label: &Column{Name: "kind", Strings: p.Label.Strings}}},
+		{"no id", &Table{Matrix: p.Matrix, Features: p.Features, Label: &Column{Name: "kind", Strings: p.Label.Strings}}},
+		{"text id", &Table{Matrix: p.Matrix, Features: p.Features, ID: &Column{Name: "id", Strings: p.Label.Strings}, Label: &Column{Name: "kind", Strings: p.Label.Strings}}},
+		{"nulls in a column without them", p},
+	} {
+		if err := tw.Write(c.t); err == nil {
+			t.Errorf("%s: written without an error", c.name)
+		}
+	}
+}
