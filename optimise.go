@@ -41,6 +41,10 @@ func (j *job) optimise(pp *CSR) ([]float64, error) {
 			return nil, err
 		}
 	}
+	// The features read back for the start are garbage now: hand them
+	// back before P's renumbering allocates (at 1,000,000 rows the peak
+	// was 2.49 GB with them in the heap, against about 1.9 GB).
+	j.freeMemory()
 	// The optimiser renumbers P in P's own memory (1.5 times P at once
 	// instead of twice: 0.5 GB less at 1,000,000 rows), so the caller's
 	// reference goes first: nothing may hold P's arrays but the optimiser.
