@@ -46,7 +46,11 @@ type MemoryPart struct {
 // resident (×1.12), the 1,000,000 document embeddings 2,600 MiB and 2,890
 // MiB (×1.11), the 100,000-row demo with MemoryBase taken off 235 and 282
 // MiB (×1.20); 1.15 keeps the large runs on the safe side. A library caller
-// without ReturnMemory peaks higher (×1.17 more at 1,000,000 rows).
+// without ReturnMemory peaks higher (×1.17 more at 1,000,000 rows). With
+// fewer arrays held (features on disk, P renumbered in its own memory) the
+// ratio was lower on the same day: 1.82 GiB resident for 1.66 GiB of arrays
+// at 1,000,000 demo rows (×1.10), 17.90 GiB for 16.76 GiB at 10,000,000
+// (×1.07).
 const MemorySlack = 1.15
 
 // MemoryBase is added to every phase's estimate: the program, the Go
@@ -106,7 +110,9 @@ const AssumedEntriesPerRow = 1.6
 // 288 and 370 MiB estimated against 299 and 382 MiB at 70,000 and 100,000
 // demo rows; 2.78 GiB against 2.62 GiB at 1,000,000 (2,685 MiB in the
 // run's report); 3.02 GiB against 2.82 GiB for 1,000,000 document
-// embeddings.
+// embeddings. With the features on disk after the neighbour search and P
+// renumbered in its own memory: 2.01 GiB against 1.82 GiB at 1,000,000
+// demo rows, 19.38 GiB against 17.90 GiB at 10,000,000.
 func EstimateMemory(rows, features int, s Settings, entries int64) MemoryEstimate {
 	n, d := int64(rows), int64(features)
 	k := int64(knn.Neighbours(s.Perplexity, rows))
