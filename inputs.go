@@ -36,9 +36,9 @@ func FromFiles(paths ...string) Source {
 // column) before reading it as it would a user's file. It is meant for the
 // cosine metric.
 func DocumentSource(rows int, seed uint64, threads int) Source {
-	return Source{name: "documents.arrow", id: "doc_id", label: "topic", write: func(w io.Writer) error {
-		return bench.WriteDocuments(w, rows, seed, threads)
-	}}
+	return Source{name: "documents.arrow", id: "doc_id", label: "topic",
+		what:  fmt.Sprintf("%d invented document embeddings (one vector column of %d)", rows, bench.DocumentWidth),
+		write: func(w io.Writer) error { return bench.WriteDocuments(w, rows, seed, threads) }}
 }
 
 // inputList returns every input of the settings, in reading order.

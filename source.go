@@ -101,11 +101,7 @@ func (src Source) resolve(dir string, obs Observer) (path, id, label string, err
 		if err := checkpoint.AtomicWrite(path, src.write); err != nil {
 			return "", "", "", fmt.Errorf("writing %s: %w", path, err)
 		}
-		if src.what != "" {
-			obs.Note(fmt.Sprintf("demo: wrote %s to %s", src.what, path))
-		} else {
-			obs.Note(fmt.Sprintf("demo: wrote %s", path))
-		}
+		obs.Note(fmt.Sprintf("demo: wrote %s to %s", src.what, path))
 		if path, err = filepath.Abs(path); err != nil {
 			return "", "", "", err
 		}
