@@ -252,3 +252,38 @@ func TestScoresFrom(t *testing.T) {
 		t.Errorf("From %d and %d, want 0 for the optimiser and 2000 for the scores", laws[0].From, laws[1].From)
 	}
 }
+
+// TestPrepareDemoPerSeed: the demo dataset is written once per (rows, seed)
+// and reused after; another seed gets a file of its own with other rows.
+func TestPrepareDemoPerSeed(t *testing.T) {
+	dir := t.TempDir()
+	s := DefaultSettings()
+	obs := &notes{}
+	a, err := PrepareDataset("demo", 500, s, 2, dir, obs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	again, err := PrepareDataset("demo", 500, s, 2, dir, obs)
+	if err != nil || again != a || len(obs.note) != 1 {
+		t.Fatalf("same seed again: %+v (error %v) after %+v, %d notes; want the same file, written once", again, err, a, len(obs.note))
+	}
+	s.Seed++
+	b, err := PrepareDataset("demo", 500, s, 2, dir, obs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if b.Path == a.Path || len(obs.note) != 2 {
+		t.Fatalf("another seed: %s after %s, %d notes; want a file of its own", b.Path, a.Path, len(obs.note))
+	}
+	ta, err := ingest.Read(a.Path, ingest.Options{ID: "id"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	tb, err := ingest.Read(b.Path, ingest.Options{ID: "id"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if ta.Hash == tb.Hash {
+		t.Error("two seeds gave the same rows")
+	}
+}

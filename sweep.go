@@ -29,19 +29,15 @@ type Dataset struct {
 // read once with s's column choices to count its rows.
 func PrepareDataset(name string, rows int, s Settings, threads int, dir string, obs Observer) (Dataset, error) {
 	obs = observerOrQuiet(obs)
-	var t *ingest.Table
 	switch name {
 	case "demo":
-		// Written part by part, never held whole.
+		// Written part by part, never held whole; the file is the seed's.
 		if rows <= 0 {
 			rows = 20000
 		}
-		path := filepath.Join(dir, fmt.Sprintf("data-demo-%d.parquet", rows))
-		if _, err := os.Stat(path); err != nil {
-			obs.Note(fmt.Sprintf("bench: writing %d rows of demo to %s", rows, path))
-			if err := checkpoint.AtomicWrite(path, func(w io.Writer) error { return bench.WriteDemo(w, rows, s.Seed, threads) }); err != nil {
-				return Dataset{}, fmt.Errorf("writing %s: %w", path, err)
-			}
+		path := filepath.Join(dir, fmt.Sprintf("data-demo-%d-seed%d.parquet", rows, s.Seed))
+		if err := writeOnce(path, rows, name, obs, func(w io.Writer) error { return bench.WriteDemo(w, rows, s.Seed, threads) }); err != nil {
+			return Dataset{}, err
 		}
 		return Dataset{Path: path, Rows: rows, ID: "id", Label: "population"}, nil
 	case "mnist":
@@ -49,9 +45,15 @@ func PrepareDataset(name string, rows int, s Settings, threads int, dir string, 
 		if err != nil {
 			return Dataset{}, err
 		}
-		if t, err = bench.MNIST(mdir, rows); err != nil {
+		t, err := bench.MNIST(mdir, rows)
+		if err != nil {
 			return Dataset{}, err
 		}
+		path := filepath.Join(dir, fmt.Sprintf("data-%s-%d.parquet", name, t.N))
+		if err := writeOnce(path, t.N, name, obs, func(w io.Writer) error { return ingest.WriteTable(w, t) }); err != nil {
+			return Dataset{}, err
+		}
+		return Dataset{Path: path, Rows: t.N, ID: t.ID.Name, Label: t.Label.Name}, nil
 	default:
 		abs, err := filepath.Abs(name)
 		if err != nil {
@@ -64,18 +66,18 @@ func PrepareDataset(name string, rows int, s Settings, threads int, dir string, 
 		}
 		return Dataset{Path: abs, Rows: probe.N, ID: s.ID, Label: s.Label}, nil
 	}
-	path := filepath.Join(dir, fmt.Sprintf("data-%s-%d.parquet", name, t.N))
-	if _, err := os.Stat(path); err != nil {
-		obs.Note(fmt.Sprintf("bench: writing %d rows of %s to %s", t.N, name, path))
-		if err := writeTable(path, t); err != nil {
-			return Dataset{}, err
-		}
+}
+
+// writeOnce writes a dataset's file with write unless it is already there.
+func writeOnce(path string, rows int, name string, obs Observer, write func(io.Writer) error) error {
+	if _, err := os.Stat(path); err == nil {
+		return nil
 	}
-	d := Dataset{Path: path, Rows: t.N, ID: t.ID.Name}
-	if t.Label != nil {
-		d.Label = t.Label.Name
+	obs.Note(fmt.Sprintf("bench: writing %d rows of %s to %s", rows, name, path))
+	if err := checkpoint.AtomicWrite(path, write); err != nil {
+		return fmt.Errorf("writing %s: %w", path, err)
 	}
-	return d, nil
+	return nil
 }
 
 // WriteSweepReports writes the reports of a sweep into out: bench.csv and
