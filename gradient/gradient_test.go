@@ -371,6 +371,44 @@ func TestMortonSpread(t *testing.T) {
 	}
 }
 
+// TestLagrangeFive checks the interpolation weights: for orders 3 to 6 they
+// reproduce every polynomial of degree below the order exactly, Σ_k w_k k^j
+// = u^j (the defining property of Lagrange interpolation), and the
+// straight-line form for order 5 gives the loop's bits, so the maps made
+// before it existed are unchanged.
+func TestLagrangeFive(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 5))
+	for _, p := range []int{3, 4, 5, 6} {
+		g, err := newFFTGrid(10, Params{Dims: 2, Dof: 1, Method: Grid, Threads: 1, GridOrder: p})
+		if err != nil {
+			t.Fatal(err)
+		}
+		w, loop := make([]float64, p), make([]float64, p)
+		for trial := 0; trial < 2000; trial++ {
+			u := float64(p-1) * rng.Float64()
+			if trial < p { // the nodes themselves
+				u = float64(trial)
+			}
+			g.lagrange(u, w)
+			lagrangeLoop(u, g.denom, loop)
+			for k := range w {
+				if math.Float64bits(w[k]) != math.Float64bits(loop[k]) {
+					t.Fatalf("p = %d, u = %v: weight %d is %v, the loop gives %v", p, u, k, w[k], loop[k])
+				}
+			}
+			for j := 0; j < p; j++ {
+				var sum float64
+				for k := range w {
+					sum += w[k] * math.Pow(float64(k), float64(j))
+				}
+				if want := math.Pow(u, float64(j)); math.Abs(sum-want) > 1e-12*math.Max(1, want) {
+					t.Fatalf("p = %d, u = %v: Σ w_k k^%d = %v, want %v", p, u, j, sum, want)
+				}
+			}
+		}
+	}
+}
+
 // TestThreadsSameBits runs 20 optimiser steps with 1, 2 and 3 threads and
 // requires identical bits (the package's determinism promise; common practice).
 func TestThreadsSameBits(t *testing.T) {

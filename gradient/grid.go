@@ -154,15 +154,45 @@ func smooth(x int) bool {
 }
 
 // lagrange writes the p interpolation weights at u for nodes at 0, 1, …, p−1.
+//
+// The default order 5 has its own straight-line form, four times faster than
+// the loop (it is computed for every point twice a step); it multiplies the
+// same factors in the same order as the loop, so the weights have the same
+// bits (TestLagrangeFive).
 func (g *fftGrid) lagrange(u float64, w []float64) {
-	for k := range g.p {
+	if g.p == 5 {
+		lagrange5(u, g.denom, w)
+		return
+	}
+	lagrangeLoop(u, g.denom, w)
+}
+
+// lagrange5 is lagrangeLoop for p = 5: each product runs over l = 0…4 in
+// order, skipping l = k, and shares its leading factors with the others.
+func lagrange5(u float64, denom, w []float64) {
+	_, _ = denom[4], w[4]
+	t0, t1, t2, t3, t4 := u, u-1, u-2, u-3, u-4
+	t01 := t0 * t1
+	t012 := t01 * t2
+	w[0] = t1 * t2 * t3 * t4 / denom[0]
+	w[1] = t0 * t2 * t3 * t4 / denom[1]
+	w[2] = t01 * t3 * t4 / denom[2]
+	w[3] = t012 * t4 / denom[3]
+	w[4] = t012 * t3 / denom[4]
+}
+
+// lagrangeLoop writes the len(w) interpolation weights at u for nodes at
+// 0, 1, …, len(w)−1: w_k = Π_{l≠k} (u − l) / denom_k.
+func lagrangeLoop(u float64, denom, w []float64) {
+	p := len(w)
+	for k := range p {
 		num := 1.0
-		for l := range g.p {
+		for l := range p {
 			if l != k {
 				num *= u - float64(l)
 			}
 		}
-		w[k] = num / g.denom[k]
+		w[k] = num / denom[k]
 	}
 }
 
@@ -367,10 +397,18 @@ func (g *fftGrid) spread(y []float64) {
 	}
 	rs[0] = 0
 	par.Blocks(n, rowBlock, g.threads, func(_, _, lo, hi int) {
+		// The points' positions are gathered into the first weight of their
+		// slots in a loop of their own: the reads jump across the map, and
+		// in a tight loop many of them are in flight at once (within the
+		// weights' loop they cost three fifths of the spreading at 10^6
+		// points, one cache miss after another).
 		for s := lo; s < hi; s++ {
 			i := int(g.order[s])
-			bx, ux := g.stencil((y[2*i] - g.lo[0]) * inv)
-			by, uy := g.stencil((y[2*i+1] - g.lo[1]) * inv)
+			g.wx[s*p], g.wy[s*p] = y[2*i], y[2*i+1]
+		}
+		for s := lo; s < hi; s++ {
+			bx, ux := g.stencil((g.wx[s*p] - g.lo[0]) * inv)
+			by, uy := g.stencil((g.wy[s*p] - g.lo[1]) * inv)
 			g.base[s] = int32(by*m + bx)
 			g.lagrange(ux, g.wx[s*p:(s+1)*p])
 			g.lagrange(uy, g.wy[s*p:(s+1)*p])
