@@ -108,15 +108,54 @@ func writeFile(fsys FS, path, kind string, sections []Section) error {
 // ReadFile reads and decodes the state file at path, which must be of the
 // given kind. Decoding errors are the typed errors of Decode with File set to
 // path; a missing file gives an error satisfying errors.Is(err, fs.ErrNotExist).
-// The whole file is read into memory; sections alias that buffer.
+//
+// The file is read section by section, each into a buffer of its own (its
+// checksum checked as Decode checks it), so the file is held once: a caller
+// can turn a section into values without a copy (ShareValues) and drop the
+// others. Reading the whole file and decoding a copy of each section, as a
+// 10^7-row P of 10.6 GB needs, would hold it twice.
 func ReadFile(path, kind string) ([]Section, error) {
-	data, err := os.ReadFile(path)
+	f, err := os.Open(path)
 	if err != nil {
 		return nil, fmt.Errorf("reading state file: %w", err)
 	}
-	sections, err := Decode(data, kind)
+	defer f.Close()
+	info, err := f.Stat()
 	if err != nil {
-		return nil, setFile(err, path)
+		return nil, fmt.Errorf("reading state file: %w", err)
 	}
-	return sections, nil
+	total := info.Size()
+	if int64(int(total)) != total {
+		return nil, fmt.Errorf("reading state file %s: %d bytes is more than this machine can address", path, total)
+	}
+	// The header is read in growing pieces until it is whole.
+	head := make([]byte, min(total, headChunk))
+	for {
+		if _, err := io.ReadFull(io.NewSectionReader(f, 0, total), head); err != nil {
+			return nil, fmt.Errorf("reading state file %s: %w", path, err)
+		}
+		sections, entries, start, short, err := decodeHeader(head, int(total), kind)
+		if err != nil {
+			return nil, setFile(err, path)
+		}
+		if short {
+			head = make([]byte, min(total, 4*int64(len(head))))
+			continue
+		}
+		err = placeSections(uint64(total), sections, entries, start, func(off, n uint64) ([]byte, error) {
+			b := make([]byte, n)
+			if _, err := f.ReadAt(b, int64(off)); err != nil {
+				return nil, fmt.Errorf("reading %s: %w", path, err)
+			}
+			return b, nil
+		})
+		if err != nil {
+			return nil, setFile(err, path)
+		}
+		return sections, nil
+	}
 }
+
+// headChunk is the first piece of a state file read for its header (a
+// table of a few dozen sections takes a few kilobytes).
+const headChunk = 64 << 10

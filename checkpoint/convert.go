@@ -19,9 +19,12 @@ import (
 //     on little-endian hosts. Use it for big arrays (embedding, graph,
 //     affinities) that stay unchanged until the file is written.
 //   - DecodeValues (and SectionValues, which also looks the section up)
-//     copies section bytes into a new slice of values. Decoded sections alias
-//     the file's buffer, which need not be aligned for T, so decoding always
-//     copies.
+//     copies section bytes into a new slice of values. Use it for sections
+//     of Decode, which alias one buffer and need not be aligned for T.
+//   - ShareValues (and SharedSectionValues) gives the values in the section
+//     bytes' own memory where it can: on little-endian hosts, for bytes
+//     aligned for T, as ReadFile's sections are (each has its own buffer).
+//     Use it for big arrays read from files, which a copy would hold twice.
 type Element interface {
 	int32 | int64 | uint64 | float32 | float64
 }
@@ -62,6 +65,36 @@ func DecodeValues[T Element](b []byte) ([]T, error) {
 	}
 	if _, err := binary.Decode(b, binary.LittleEndian, v); err != nil {
 		return nil, fmt.Errorf("decoding %d values: %w", len(v), err)
+	}
+	return v, nil
+}
+
+// ShareValues is DecodeValues without the copy where it can: on a
+// little-endian host, when b starts at an address that is a multiple of the
+// size of T, the values are b's own memory (b must not change afterwards,
+// and the values keep b alive); otherwise they are a copy. It fails as
+// DecodeValues does.
+func ShareValues[T Element](b []byte) ([]T, error) {
+	n := size[T]()
+	if !hostLittleEndian || len(b) == 0 || uintptr(unsafe.Pointer(unsafe.SliceData(b)))%uintptr(n) != 0 {
+		return DecodeValues[T](b)
+	}
+	if len(b)%n != 0 {
+		return DecodeValues[T](b) // its error
+	}
+	return unsafe.Slice((*T)(unsafe.Pointer(unsafe.SliceData(b))), len(b)/n), nil
+}
+
+// SharedSectionValues looks up the section called name (see Lookup) and
+// turns its bytes into values with ShareValues. Errors name the section.
+func SharedSectionValues[T Element](sections []Section, name string) ([]T, error) {
+	b, err := Lookup(sections, name)
+	if err != nil {
+		return nil, err
+	}
+	v, err := ShareValues[T](b)
+	if err != nil {
+		return nil, fmt.Errorf("section %q: %w", name, err)
 	}
 	return v, nil
 }

@@ -136,3 +136,58 @@ func TestSectionValues(t *testing.T) {
 		}
 	}
 }
+
+// TestShareValues checks ShareValues against DecodeValues (itself checked
+// against hand-written bytes above): the same values for every element type,
+// memory shared with the bytes when they are aligned on a little-endian
+// host, a copy when they are not, and DecodeValues' error for a length that
+// does not fit the type.
+func TestShareValues(t *testing.T) {
+	want := []float64{math.Pi, -0.0, math.Inf(1), 1e-310}
+	buf := make([]byte, 8*len(want)+1) // Go aligns a fresh allocation to 8 bytes
+	copy(buf, EncodeValues(want))
+	misaligned := make([]byte, 8*len(want)+1)
+	copy(misaligned[1:], buf[:8*len(want)])
+	for _, tc := range []struct {
+		name  string
+		b     []byte
+		share bool
+	}{
+		{"aligned", buf[:8*len(want)], hostLittleEndian},
+		{"misaligned", misaligned[1:], false},
+	} {
+		b := tc.b
+		got, err := ShareValues[float64](b)
+		if err != nil {
+			t.Fatalf("%s: %v", tc.name, err)
+		}
+		dec, _ := DecodeValues[float64](b)
+		for k := range dec {
+			if math.Float64bits(got[k]) != math.Float64bits(dec[k]) {
+				t.Errorf("%s: value %d is %v, DecodeValues gives %v", tc.name, k, got[k], dec[k])
+			}
+		}
+		b[0] ^= 1 // shared memory sees the change, a copy does not
+		if changed := math.Float64bits(got[0]) != math.Float64bits(dec[0]); changed != tc.share {
+			t.Errorf("%s: shared %v, want %v", tc.name, changed, tc.share)
+		}
+		b[0] ^= 1
+	}
+	i32, err := ShareValues[int32](EncodeValues([]int32{-2, 7}))
+	if err != nil || !slices.Equal(i32, []int32{-2, 7}) {
+		t.Errorf("int32: %v, %v", i32, err)
+	}
+	if v, err := ShareValues[int64](nil); err != nil || len(v) != 0 {
+		t.Errorf("empty: %v, %v", v, err)
+	}
+	if _, err := ShareValues[int32]([]byte{1, 2, 3, 4, 5}); err == nil || !strings.Contains(err.Error(), "5 bytes cannot hold int32 values") {
+		t.Errorf("odd length: error %v", err)
+	}
+	secs := []Section{{Name: "v", Data: EncodeValues([]float32{1.5})}}
+	if v, err := SharedSectionValues[float32](secs, "v"); err != nil || !slices.Equal(v, []float32{1.5}) {
+		t.Errorf("SharedSectionValues: %v, %v", v, err)
+	}
+	if _, err := SharedSectionValues[float32](secs, "w"); err == nil || !strings.Contains(err.Error(), `section "w" missing`) {
+		t.Errorf("missing section: error %v", err)
+	}
+}

@@ -4,8 +4,10 @@
 //
 // The package stores bytes, not numbers: callers turn their slices into
 // sections with the little-endian helpers (EncodeValues and View to write,
-// DecodeValues and SectionValues to read; see Element for which to use when)
-// and decide what each section means. It never imports the numeric packages.
+// DecodeValues, ShareValues and their Section forms to read; see Element for
+// which to use when) and decide what each section means. It never imports the
+// numeric packages. ReadFile reads a file section by section, so that a large
+// file is held in memory once.
 //
 // # State file layout (format version 1)
 //

@@ -276,35 +276,65 @@ type entry struct {
 // allocated, so a corrupt field cannot make Decode allocate more than a
 // small multiple of len(data).
 func Decode(data []byte, kind string) ([]Section, error) {
+	sections, entries, start, _, err := decodeHeader(data, len(data), kind)
+	if err != nil {
+		return nil, err
+	}
+	err = placeSections(uint64(len(data)), sections, entries, start, func(off, n uint64) ([]byte, error) {
+		return data[off : off+n : off+n], nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	return sections, nil
+}
+
+// decodeHeader checks the header and section table at the start of a file
+// of total bytes, of which data holds the first len(data): the magic number,
+// version, kind and table with its checksum, in that order. It returns the
+// sections (names only), their table entries and the offset where the
+// header ends. short reports that the header ran past the end of data while
+// the file is longer: the caller may retry with more of it. When data is
+// the whole file, the errors are Decode's.
+func decodeHeader(data []byte, total int, kind string) (sections []Section, entries []entry, start uint64, short bool, err error) {
 	if len(data) < len(magic) || [8]byte(data[:8]) != magic {
-		if len(data) < len(magic) && matchesMagicPrefix(data) {
-			return nil, &CorruptError{Reason: fmt.Sprintf("truncated in the header (%d bytes, shorter than the magic number)", len(data))}
+		if len(data) < len(magic) && len(data) < total {
+			return nil, nil, 0, true, nil
 		}
-		return nil, &MagicError{}
+		if len(data) < len(magic) && matchesMagicPrefix(data) {
+			return nil, nil, 0, false, &CorruptError{Reason: fmt.Sprintf("truncated in the header (%d bytes, shorter than the magic number)", len(data))}
+		}
+		return nil, nil, 0, false, &MagicError{}
 	}
 	r := &reader{b: data, pos: len(magic)}
+	fail := func(err error) ([]Section, []entry, uint64, bool, error) {
+		if r.err != nil && len(data) < total {
+			return nil, nil, 0, true, nil
+		}
+		return nil, nil, 0, false, err
+	}
 	version := r.u32("format version")
 	if r.err != nil {
-		return nil, r.err
+		return fail(r.err)
 	}
 	if version != FormatVersion {
-		return nil, &VersionError{Got: version, Want: FormatVersion}
+		return fail(&VersionError{Got: version, Want: FormatVersion})
 	}
 	kindLen := r.u8("kind length")
 	gotKind := string(r.take(kindLen, "kind"))
 	count := r.u32("section count")
 	if r.err != nil {
-		return nil, r.err
+		return fail(r.err)
 	}
 	if kindLen == 0 || kindLen > maxKindLen {
-		return nil, &CorruptError{Reason: fmt.Sprintf("bad header: kind length %d", kindLen)}
+		return fail(&CorruptError{Reason: fmt.Sprintf("bad header: kind length %d", kindLen)})
 	}
 	// Bound the allocation by the bytes present before trusting count.
-	if uint64(count) > uint64(len(data)-r.pos)/minEntrySize {
-		return nil, &CorruptError{Reason: fmt.Sprintf("bad header or truncated: %d sections cannot fit in %d bytes", count, len(data))}
+	if uint64(count) > uint64(total-r.pos)/minEntrySize {
+		return fail(&CorruptError{Reason: fmt.Sprintf("bad header or truncated: %d sections cannot fit in %d bytes", count, total)})
 	}
-	sections := make([]Section, count)
-	entries := make([]entry, count)
+	sections = make([]Section, count)
+	entries = make([]entry, count)
 	for i := range sections {
 		nameLen := r.u8("section name length")
 		name := r.take(nameLen, "section name")
@@ -312,36 +342,36 @@ func Decode(data []byte, kind string) ([]Section, error) {
 		entries[i].length = r.u64("section length")
 		entries[i].crc = r.u32("section checksum")
 		if r.err != nil {
-			return nil, r.err
+			return fail(r.err)
 		}
 		sections[i].Name = string(name)
 	}
 	stored := r.u32("header checksum")
 	if r.err != nil {
-		return nil, r.err
+		return fail(r.err)
 	}
 	if got := checksum(data[:r.pos-4]); got != stored {
-		return nil, &CorruptError{Reason: fmt.Sprintf("header checksum mismatch (stored %08x, computed %08x)", stored, got)}
+		return fail(&CorruptError{Reason: fmt.Sprintf("header checksum mismatch (stored %08x, computed %08x)", stored, got)})
 	}
 	// The header is now known to be as written; remaining checks catch
 	// writer bugs and truncation of the section bytes.
 	if err := validKind(gotKind); err != nil {
-		return nil, &CorruptError{Reason: "bad header: " + err.Error()}
+		return fail(&CorruptError{Reason: "bad header: " + err.Error()})
 	}
 	if gotKind != kind {
-		return nil, &KindError{Got: gotKind, Want: kind}
+		return fail(&KindError{Got: gotKind, Want: kind})
 	}
-	if err := placeSections(data, sections, entries, uint64(r.pos)); err != nil {
-		return nil, err
-	}
-	return sections, nil
+	return sections, entries, uint64(r.pos), false, nil
 }
 
-// placeSections checks the section names and the table entries against
-// data, whose header ends at start, and points each section at its bytes:
+// placeSections checks the section names and the table entries against a
+// file of total bytes whose header ends at start, and gives each section its
+// bytes from fetch(offset, length), called only for bytes within the file:
 // sections must follow the header and each other without gaps, end exactly
-// at the end of data, and match their checksums.
-func placeSections(data []byte, sections []Section, entries []entry, start uint64) error {
+// at the end of the file, and match their checksums. Each section is checked
+// in full before the next is looked at, so a truncated file fails naming
+// the first section whose bytes are missing.
+func placeSections(total uint64, sections []Section, entries []entry, start uint64, fetch func(off, n uint64) ([]byte, error)) error {
 	seen := make(map[string]bool, len(sections))
 	next := start
 	for i, s := range sections {
@@ -356,17 +386,21 @@ func placeSections(data []byte, sections []Section, entries []entry, start uint6
 		if e.off != next {
 			return &CorruptError{Section: s.Name, Reason: fmt.Sprintf("offset %d, expected %d", e.off, next)}
 		}
-		if e.length > uint64(len(data))-e.off {
-			return &CorruptError{Section: s.Name, Reason: fmt.Sprintf("truncated (%d bytes at offset %d, file has %d)", e.length, e.off, len(data))}
+		if e.length > total-e.off {
+			return &CorruptError{Section: s.Name, Reason: fmt.Sprintf("truncated (%d bytes at offset %d, file has %d)", e.length, e.off, total)}
 		}
 		next = e.off + e.length
-		sections[i].Data = data[e.off:next:next]
-		if got := checksum(sections[i].Data); got != e.crc {
+		b, err := fetch(e.off, e.length)
+		if err != nil {
+			return fmt.Errorf("section %q: %w", s.Name, err)
+		}
+		if got := checksum(b); got != e.crc {
 			return &CorruptError{Section: s.Name, Reason: "checksum mismatch"}
 		}
+		sections[i].Data = b
 	}
-	if next != uint64(len(data)) {
-		return &CorruptError{Reason: fmt.Sprintf("%d unexpected bytes after the last section", uint64(len(data))-next)}
+	if next != total {
+		return &CorruptError{Reason: fmt.Sprintf("%d unexpected bytes after the last section", total-next)}
 	}
 	return nil
 }

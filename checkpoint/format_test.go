@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"errors"
+	"fmt"
 	"os"
 	"path/filepath"
 	"runtime"
@@ -393,5 +394,48 @@ func BenchmarkWriteFile(b *testing.B) {
 		if err := WriteFile(path, "state", secs); err != nil {
 			b.Fatal(err)
 		}
+	}
+}
+
+// TestReadFileLongHeader reads a file whose section table (3,000 sections,
+// about 150 KB) is longer than the first piece ReadFile reads for the
+// header, whole and cut inside the table: the sections come back as written,
+// each in its own buffer, and the cut file fails as Decode fails on the
+// same bytes.
+func TestReadFileLongHeader(t *testing.T) {
+	var secs []Section
+	for i := range 3000 {
+		secs = append(secs, Section{Name: fmt.Sprintf("section-with-a-long-name-%05d", i), Data: EncodeValues([]int64{int64(i)})})
+	}
+	var buf bytes.Buffer
+	if err := Encode(&buf, "graph", secs); err != nil {
+		t.Fatal(err)
+	}
+	full := buf.Bytes()
+	if head := len(full) - 8*len(secs); head <= headChunk {
+		t.Fatalf("the header is %d bytes, not longer than the first piece (%d)", head, headChunk)
+	}
+	dir := t.TempDir()
+	path := filepath.Join(dir, "long.njs")
+	if err := os.WriteFile(path, full, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	got, err := ReadFile(path, "graph")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range secs {
+		if got[i].Name != secs[i].Name || !bytes.Equal(got[i].Data, secs[i].Data) || cap(got[i].Data) != 8 {
+			t.Fatalf("section %d: %q % x (cap %d), want %q % x", i, got[i].Name, got[i].Data, cap(got[i].Data), secs[i].Name, secs[i].Data)
+		}
+	}
+	cut := full[:headChunk+1000]
+	if err := os.WriteFile(path, cut, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	_, err = ReadFile(path, "graph")
+	_, derr := Decode(cut, "graph")
+	if err == nil || derr == nil || err.Error() != setFile(derr, path).Error() {
+		t.Errorf("cut in the table: ReadFile error %v, Decode error %v", err, derr)
 	}
 }

@@ -26,6 +26,13 @@ func write(target, name string, data []byte) {
 	}
 }
 
+// seed writes a state-file seed for both decoders' targets: FuzzDecode
+// (bytes in memory) and FuzzReadFile (the same bytes read from a file).
+func seed(name string, data []byte) {
+	write("FuzzDecode", name, data)
+	write("FuzzReadFile", name, data)
+}
+
 func encode(kind string, secs []checkpoint.Section) []byte {
 	var b bytes.Buffer
 	if err := checkpoint.Encode(&b, kind, secs); err != nil {
@@ -41,25 +48,25 @@ func main() {
 		{Name: "gains", Data: checkpoint.EncodeValues([]float64{1, 0.8})},
 		{Name: "rng", Data: checkpoint.EncodeValues([]uint64{42})},
 	})
-	write("FuzzDecode", "valid-state", state)
-	write("FuzzDecode", "valid-empty", encode("state", nil))
-	write("FuzzDecode", "valid-graph", encode("graph", []checkpoint.Section{
+	seed("valid-state", state)
+	seed("valid-empty", encode("state", nil))
+	seed("valid-graph", encode("graph", []checkpoint.Section{
 		{Name: "indices", Data: checkpoint.EncodeValues([]int32{1, 0})},
 	}))
 	for _, n := range []int{0, 5, 12, 20, 40, len(state) / 2, len(state) - 1} {
-		write("FuzzDecode", fmt.Sprintf("truncated-%03d", n), state[:n])
+		seed(fmt.Sprintf("truncated-%03d", n), state[:n])
 	}
 	for _, i := range []int{3, 9, 14, 30, 60, len(state) - 3} {
 		b := bytes.Clone(state)
 		b[i] ^= 0x04
-		write("FuzzDecode", fmt.Sprintf("flipped-%03d", i), b)
+		seed(fmt.Sprintf("flipped-%03d", i), b)
 	}
 	newer := bytes.Clone(state)
 	binary.LittleEndian.PutUint32(newer[8:], 2)
-	write("FuzzDecode", "newer-version", newer)
-	write("FuzzDecode", "other-file", []byte("PAR1\x15\x04\x15\x10"))
+	seed("newer-version", newer)
+	seed("other-file", []byte("PAR1\x15\x04\x15\x10"))
 	trailing := append(bytes.Clone(state), 0, 0)
-	write("FuzzDecode", "trailing", trailing)
+	seed("trailing", trailing)
 
 	manifest := `{
   "tool": "nightjar",
