@@ -65,10 +65,10 @@ func ExampleEstimateMemory() {
 	//   neighbours   2.0 GiB
 	//   affinities   2.0 GiB
 	//   optimiser    2.0 GiB
-	//   scores       0.5 GiB
+	//   scores       0.3 GiB
 	// 10000000 rows: peak 19.2 GiB in the optimiser phase
 	//   neighbours  19.1 GiB
 	//   affinities  19.1 GiB
 	//   optimiser   19.2 GiB
-	//   scores       4.6 GiB
+	//   scores       2.4 GiB
 }

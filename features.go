@@ -90,7 +90,7 @@ func featuresFromSections(secs []checkpoint.Section) (*refFeatures, error) {
 		return nil, fmt.Errorf("features: bad shape %v", shape)
 	}
 	f := &refFeatures{X: Matrix{N: int(shape[0]), D: int(shape[1])}}
-	if f.X.Data, err = checkpoint.SectionValues[float32](secs, "values"); err != nil {
+	if f.X.Data, err = checkpoint.SharedSectionValues[float32](secs, "values"); err != nil {
 		return nil, err
 	}
 	if len(f.X.Data) != f.X.N*f.X.D {

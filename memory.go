@@ -76,10 +76,10 @@ const AssumedEntriesPerRow = 1.6
 //
 //	features                          4·N·D, while the neighbours are
 //	                                  searched; then on disk only
-//	                                  (features.njs), read back (8·N·D:
-//	                                  the file's bytes and the values)
-//	                                  for the optimiser's start and for
-//	                                  the scores
+//	                                  (features.njs), read back (4·N·D:
+//	                                  the values in the buffer the file
+//	                                  is read into) for the optimiser's
+//	                                  start and for the scores
 //	neighbour graph                   8·N·k (int32 index, float32 distance)
 //	NN-descent work arrays            N·(k + 8·s + 8·s + 48): entry states,
 //	                                  forward and reverse samples, offsets,
@@ -148,13 +148,13 @@ func EstimateMemory(rows, features int, s Settings, entries int64) MemoryEstimat
 	// The optimiser's start reads the features back while P is held, before
 	// P is renumbered: whichever of the two is larger sets the phase.
 	extra := MemoryPart{"affinities renumbered", 4*e.Entries + 8*(n+1)}
-	if back := 8 * n * d; back > extra.Bytes {
+	if back := 4 * n * d; back > extra.Bytes {
 		extra = MemoryPart{"features read back for the start", back}
 	}
 	e.add("neighbours", search...)
 	e.add("affinities", graph, p)
 	e.add("optimiser", p, extra, opt)
-	e.add("scores", MemoryPart{"features read back", 8 * n * d}, MemoryPart{"map", 8 * n * dims})
+	e.add("scores", MemoryPart{"features read back", 4 * n * d}, MemoryPart{"map", 8 * n * dims})
 	return e
 }
 

@@ -5,10 +5,12 @@ import (
 	"errors"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 	"unsafe"
 
+	"nightjar/checkpoint"
 	"nightjar/knn"
 )
 
@@ -18,9 +20,9 @@ import (
 // 8·1,000·90 = 720,000, NN-descent's work arrays 1,000·(90 + 16·45 + 48)
 // = 858,000, affinities (1.6·90·1,000 = 144,000 entries assumed)
 // 8·144,000 + 8·1,001 = 1,160,008, their renumbering 4·144,000 + 8·1,001
-// = 584,008 (more than the 8·1,000·10 = 80,000 of the features read back
+// = 584,008 (more than the 4·1,000·10 = 40,000 of the features read back
 // for the start), the optimiser 1,000·(48·2 + 16) + 1,000·(48 + 128) =
-// 288,000; the scores read the features back (80,000) beside the map
+// 288,000; the scores read the features back (40,000) beside the map
 // (8·1,000·2 = 16,000). The features are not held after the neighbour
 // search.
 func TestEstimateMemoryHandWorked(t *testing.T) {
@@ -32,7 +34,7 @@ func TestEstimateMemoryHandWorked(t *testing.T) {
 		"neighbours": phase(40_000 + 720_000 + 858_000),
 		"affinities": phase(720_000 + 1_160_008),
 		"optimiser":  phase(1_160_008 + 584_008 + 288_000),
-		"scores":     phase(80_000 + 16_000),
+		"scores":     phase(40_000 + 16_000),
 	}
 	if e.Entries != 144_000 || e.Counted || e.Neighbours != 90 {
 		t.Fatalf("entries %d (counted %v), k %d; want 144000 assumed, k 90", e.Entries, e.Counted, e.Neighbours)
@@ -112,4 +114,58 @@ func TestMemoryCeiling(t *testing.T) {
 	if m == nil || m.PeakBytes <= MemoryBase || !m.EntriesCounted || m.Entries != res.Report.Affinities.Entries {
 		t.Fatalf("report's estimate %+v, affinity entries %d", m, res.Report.Affinities.Entries)
 	}
+}
+
+// TestSavedArraysReadOnce: the neighbour graph and P read back from a run
+// directory's files (as a resumed run reads them) are the same values as
+// saved, held in the buffers the file was read into rather than in copies,
+// so a 10^7-row P (10.6 GB) is held once, not twice. On a big-endian host
+// the values are copies by necessity and only the values are checked.
+func TestSavedArraysReadOnce(t *testing.T) {
+	dir := t.TempDir()
+	g := &Graph{N: 3, K: 2, Index: []int32{1, 2, 0, 2, 0, 1}, Dist2: []float32{1, 4, 1, 2, 4, 2}}
+	p := &CSR{N: 3, Offsets: []int64{0, 2, 4, 6}, Cols: []int32{1, 2, 0, 2, 0, 1}, Vals: []float32{0.25, 0.125, 0.25, 0.125, 0.125, 0.125}}
+	shared := func(name string, v unsafe.Pointer, secs []checkpoint.Section) {
+		t.Helper()
+		b, err := checkpoint.Lookup(secs, name)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if little := *(*byte)(unsafe.Pointer(&[]uint16{1}[0])) == 1; little && v != unsafe.Pointer(&b[0]) {
+			t.Errorf("section %q: the values are a copy of the bytes read", name)
+		}
+	}
+	gpath, ppath := filepath.Join(dir, "g.njs"), filepath.Join(dir, "p.njs")
+	if err := checkpoint.WriteFile(gpath, "graph", graphSections(g, []byte("{}"))); err != nil {
+		t.Fatal(err)
+	}
+	if err := checkpoint.WriteFile(ppath, "affinity", csrSections(p, []byte("{}"))); err != nil {
+		t.Fatal(err)
+	}
+	secs, err := checkpoint.ReadFile(gpath, "graph")
+	if err != nil {
+		t.Fatal(err)
+	}
+	g2, err := graphFromSections(secs, 3, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !slices.Equal(g2.Index, g.Index) || !slices.Equal(g2.Dist2, g.Dist2) {
+		t.Errorf("graph read back %+v, saved %+v", g2, g)
+	}
+	shared("index", unsafe.Pointer(&g2.Index[0]), secs)
+	shared("dist2", unsafe.Pointer(&g2.Dist2[0]), secs)
+	if secs, err = checkpoint.ReadFile(ppath, "affinity"); err != nil {
+		t.Fatal(err)
+	}
+	p2, err := csrFromSections(secs, 3)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !slices.Equal(p2.Offsets, p.Offsets) || !slices.Equal(p2.Cols, p.Cols) || !slices.Equal(p2.Vals, p.Vals) {
+		t.Errorf("P read back %+v, saved %+v", p2, p)
+	}
+	shared("offsets", unsafe.Pointer(&p2.Offsets[0]), secs)
+	shared("cols", unsafe.Pointer(&p2.Cols[0]), secs)
+	shared("vals", unsafe.Pointer(&p2.Vals[0]), secs)
 }

@@ -4,10 +4,12 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"runtime/debug"
 	"testing"
 
 	"nightjar/checkpoint"
 	"nightjar/gradient"
+	"nightjar/internal/core"
 )
 
 // BenchmarkSavedRun times optimiser steps on the P and the newest state of a
@@ -19,6 +21,10 @@ import (
 //	nightjar demo --rows 1000000 --run /tmp/demo1M
 //	NIGHTJAR_BENCH_RUN=/tmp/demo1M go test . -run XXX -bench SavedRun -benchtime 5x -count 3
 //
+// Each case reads P from the run directory and hands it to NewConsume, so
+// the benchmark holds what a resumed run holds (at 10^7 rows about 17 GiB;
+// select one case with -bench 'SavedRun/N=.*/grid/p=5/spacing=0.4').
+//
 // Without it there is nothing to time and the benchmark says so.
 func BenchmarkSavedRun(b *testing.B) {
 	dir := os.Getenv("NIGHTJAR_BENCH_RUN")
@@ -29,24 +35,34 @@ func BenchmarkSavedRun(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	secs, err := run.LoadArtifact(fileP, "affinity")
-	if err != nil {
-		b.Fatal(err)
+	// P is read again for every case and handed to NewConsume, so that one
+	// P and its renumbering (1.5 × P) are held at a time, as in a run: at
+	// 10^7 rows P alone is 10 GB.
+	loadP := func(b *testing.B) core.CSR {
+		debug.FreeOSMemory() // the previous case's P
+		secs, err := run.LoadArtifact(fileP, "affinity")
+		if err != nil {
+			b.Fatal(err)
+		}
+		shape, err := checkpoint.SectionValues[int64](secs, "shape")
+		if err != nil {
+			b.Fatal(err)
+		}
+		P, err := csrFromSections(secs, int(shape[0]))
+		if err != nil {
+			b.Fatal(err)
+		}
+		return *P
 	}
-	shape, err := checkpoint.SectionValues[int64](secs, "shape")
-	if err != nil {
-		b.Fatal(err)
-	}
-	n := int(shape[0])
-	P, err := csrFromSections(secs, n)
-	if err != nil {
-		b.Fatal(err)
-	}
-	secs = nil
 	_, ss, _, err := run.LoadState()
 	if err != nil {
 		b.Fatal(err)
 	}
+	y, err := checkpoint.SectionValues[float64](ss, "y")
+	if err != nil {
+		b.Fatal(err)
+	}
+	n := len(y) / 2 // a 2-D map
 	st, err := stateFromSections(ss, n, 2)
 	if err != nil {
 		b.Fatal(err)
@@ -79,7 +95,11 @@ func BenchmarkSavedRun(b *testing.B) {
 			params.Iterations, params.EarlyIterations, params.Method = 1<<30, 0, c.method
 			params.GridOrder, params.GridMin, params.GridSpacing = c.order, c.gridMin, c.spacing
 			params.Threads = 2
-			o, err := gradient.New(*P, st.Y, params)
+			P := loadP(b)
+			if P.N != n {
+				b.Fatalf("P has %d rows, the state %d", P.N, n)
+			}
+			o, err := gradient.NewConsume(P, st.Y, params)
 			if err != nil {
 				b.Fatal(err)
 			}

@@ -43,10 +43,10 @@ func graphFromSections(secs []checkpoint.Section, n, k int) (*Graph, error) {
 		return nil, fmt.Errorf("neighbour graph was made for another table or k (shape %v, want [%d %d])", shape, n, k)
 	}
 	g := &Graph{N: n, K: k}
-	if g.Index, err = checkpoint.SectionValues[int32](secs, "index"); err != nil {
+	if g.Index, err = checkpoint.SharedSectionValues[int32](secs, "index"); err != nil {
 		return nil, err
 	}
-	if g.Dist2, err = checkpoint.SectionValues[float32](secs, "dist2"); err != nil {
+	if g.Dist2, err = checkpoint.SharedSectionValues[float32](secs, "dist2"); err != nil {
 		return nil, err
 	}
 	if err := g.Validate(); err != nil {
@@ -66,13 +66,13 @@ func csrFromSections(secs []checkpoint.Section, n int) (*CSR, error) {
 		return nil, fmt.Errorf("affinities were made for another table (shape %v, table has %d rows)", shape, n)
 	}
 	p := &CSR{N: n}
-	if p.Offsets, err = checkpoint.SectionValues[int64](secs, "offsets"); err != nil {
+	if p.Offsets, err = checkpoint.SharedSectionValues[int64](secs, "offsets"); err != nil {
 		return nil, err
 	}
-	if p.Cols, err = checkpoint.SectionValues[int32](secs, "cols"); err != nil {
+	if p.Cols, err = checkpoint.SharedSectionValues[int32](secs, "cols"); err != nil {
 		return nil, err
 	}
-	if p.Vals, err = checkpoint.SectionValues[float32](secs, "vals"); err != nil {
+	if p.Vals, err = checkpoint.SharedSectionValues[float32](secs, "vals"); err != nil {
 		return nil, err
 	}
 	if err := p.ValidateLayout(); err != nil {
@@ -113,7 +113,7 @@ func stateFromSections(secs []checkpoint.Section, n, dims int) (gradient.State, 
 		name string
 		dst  *[]float64
 	}{{"y", &st.Y}, {"update", &st.Update}, {"gains", &st.Gains}} {
-		v, err := checkpoint.SectionValues[float64](secs, f.name)
+		v, err := checkpoint.SharedSectionValues[float64](secs, f.name)
 		if err != nil {
 			return st, err
 		}
