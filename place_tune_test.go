@@ -112,8 +112,15 @@ func newHeldOut(t testing.TB, name string, ref *reference, tab *ingest.Table, lo
 // par2Sample draws size of n rows (the seeded sampler of the scores).
 func looSample(n, size int) []int32 { return knn.SampleRows(n, size, 77) }
 
-// startOf calibrates P and returns it with the median start.
+// startOf calibrates P and returns it with the median start;
+// NIGHTJAR_PLACE_TUNE_PERP calibrates it at another perplexity than the
+// reference run's (a measurement of TestPlaceTune only).
 func startOf(ref *reference, idx []int32, d2 []float32, k int) ([]float64, []float64) {
+	if v := placeEnvFloat("NIGHTJAR_PLACE_TUNE_PERP", 0); v > 0 {
+		r := *ref
+		r.s.Perplexity = v
+		ref = &r
+	}
 	j := &placeJob{ref: ref, k: k, rt: Runtime{Threads: 2}}
 	n := len(idx) / k
 	res := &placed{y: make([]float64, n*ref.s.Dims), vote: make([]int32, n), share: make([]float64, n), nearest: make([]float64, n)}
