@@ -329,8 +329,14 @@ func decodeHeader(data []byte, total int, kind string) (sections []Section, entr
 	if kindLen == 0 || kindLen > maxKindLen {
 		return fail(&CorruptError{Reason: fmt.Sprintf("bad header: kind length %d", kindLen)})
 	}
-	// Bound the allocation by the bytes present before trusting count.
-	if uint64(count) > uint64(total-r.pos)/minEntrySize {
+	// Bound the allocation by the bytes present before trusting count: a
+	// table that cannot fit in the bytes read so far is read further first
+	// (so a reader of a large file never allocates for more table than it
+	// has read), and refused when the file holds no more.
+	if uint64(count) > uint64(len(data)-r.pos)/minEntrySize {
+		if len(data) < total {
+			return nil, nil, 0, true, nil
+		}
 		return fail(&CorruptError{Reason: fmt.Sprintf("bad header or truncated: %d sections cannot fit in %d bytes", count, total)})
 	}
 	sections = make([]Section, count)
