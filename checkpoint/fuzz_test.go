@@ -5,6 +5,7 @@ import (
 	"encoding/binary"
 	"errors"
 	"os"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"testing"
@@ -90,7 +91,7 @@ func FuzzReadFile(f *testing.F) {
 // checkReadFile asserts the FuzzReadFile property on one input.
 func checkReadFile(t *testing.T, dir string, data []byte) {
 	t.Helper()
-	path := dir + "/in.njs"
+	path := filepath.Join(dir, "in.njs")
 	if err := os.WriteFile(path, data, 0o644); err != nil {
 		t.Fatal(err)
 	}

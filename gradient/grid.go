@@ -400,7 +400,7 @@ func (g *fftGrid) spread(y []float64) {
 		// The points' positions are gathered into the first weight of their
 		// slots in a loop of their own: the reads jump across the map, and
 		// in a tight loop many of them are in flight at once (within the
-		// weights' loop they cost three fifths of the spreading at 10^6
+		// weights' loop they cost two fifths of the spreading at 10^6
 		// points, one cache miss after another).
 		for s := lo; s < hi; s++ {
 			i := int(g.order[s])
