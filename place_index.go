@@ -387,7 +387,7 @@ func indexFromSections(secs []checkpoint.Section, n, d int) (*refIndex, error) {
 	if len(shape) != 2 || shape[0] != int64(n) || shape[1] != int64(d) {
 		return nil, fmt.Errorf("placement index was made for %v rows×features, the reference has %d×%d", shape, n, d)
 	}
-	if ix.graph, err = checkpoint.SectionValues[int32](secs, "graph"); err != nil {
+	if ix.graph, err = checkpoint.SharedSectionValues[int32](secs, "graph"); err != nil {
 		return nil, err
 	}
 	if len(ix.graph) != n*p.Fan || !inRange(ix.graph, int32(n)) {
@@ -407,17 +407,17 @@ func treeFromSections(secs []checkpoint.Section, t, n, d int) (rpTree, error) {
 	tr := rpTree{d: d}
 	name := func(s string) string { return fmt.Sprintf("tree%d.%s", t, s) }
 	var err error
-	if tr.normals, err = checkpoint.SectionValues[float32](secs, name("normals")); err != nil {
+	if tr.normals, err = checkpoint.SharedSectionValues[float32](secs, name("normals")); err != nil {
 		return tr, err
 	}
-	if tr.offsets, err = checkpoint.SectionValues[float64](secs, name("offsets")); err != nil {
+	if tr.offsets, err = checkpoint.SharedSectionValues[float64](secs, name("offsets")); err != nil {
 		return tr, err
 	}
 	for _, f := range []struct {
 		s   string
 		dst *[]int32
 	}{{"left", &tr.left}, {"right", &tr.right}, {"leaves", &tr.leafStart}, {"rows", &tr.rows}} {
-		if *f.dst, err = checkpoint.SectionValues[int32](secs, name(f.s)); err != nil {
+		if *f.dst, err = checkpoint.SharedSectionValues[int32](secs, name(f.s)); err != nil {
 			return tr, err
 		}
 	}

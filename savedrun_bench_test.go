@@ -58,11 +58,11 @@ func BenchmarkSavedRun(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	y, err := checkpoint.SectionValues[float64](ss, "y")
+	y, err := checkpoint.Lookup(ss, "y")
 	if err != nil {
 		b.Fatal(err)
 	}
-	n := len(y) / 2 // a 2-D map
+	n := len(y) / 16 // a 2-D map of float64
 	st, err := stateFromSections(ss, n, 2)
 	if err != nil {
 		b.Fatal(err)

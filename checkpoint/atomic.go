@@ -130,30 +130,36 @@ func ReadFile(path, kind string) ([]Section, error) {
 	}
 	// The header is read in growing pieces until it is whole.
 	head := make([]byte, min(total, headChunk))
+	var (
+		sections []Section
+		entries  []entry
+		start    uint64
+	)
 	for {
-		if _, err := io.ReadFull(io.NewSectionReader(f, 0, total), head); err != nil {
+		if _, err := f.ReadAt(head, 0); err != nil {
 			return nil, fmt.Errorf("reading state file %s: %w", path, err)
 		}
-		sections, entries, start, short, err := decodeHeader(head, int(total), kind)
+		var short bool
+		sections, entries, start, short, err = decodeHeader(head, int(total), kind)
 		if err != nil {
 			return nil, setFile(err, path)
 		}
-		if short {
-			head = make([]byte, min(total, 4*int64(len(head))))
-			continue
+		if !short {
+			break
 		}
-		err = placeSections(uint64(total), sections, entries, start, func(off, n uint64) ([]byte, error) {
-			b := make([]byte, n)
-			if _, err := f.ReadAt(b, int64(off)); err != nil {
-				return nil, fmt.Errorf("reading %s: %w", path, err)
-			}
-			return b, nil
-		})
-		if err != nil {
-			return nil, setFile(err, path)
-		}
-		return sections, nil
+		head = make([]byte, min(total, 4*int64(len(head))))
 	}
+	err = placeSections(uint64(total), sections, entries, start, func(off, n uint64) ([]byte, error) {
+		b := make([]byte, n)
+		if _, err := f.ReadAt(b, int64(off)); err != nil {
+			return nil, fmt.Errorf("reading %s: %w", path, err)
+		}
+		return b, nil
+	})
+	if err != nil {
+		return nil, setFile(err, path)
+	}
+	return sections, nil
 }
 
 // headChunk is the first piece of a state file read for its header (a

@@ -88,25 +88,23 @@ func ShareValues[T Element](b []byte) ([]T, error) {
 // SharedSectionValues looks up the section called name (see Lookup) and
 // turns its bytes into values with ShareValues. Errors name the section.
 func SharedSectionValues[T Element](sections []Section, name string) ([]T, error) {
-	b, err := Lookup(sections, name)
-	if err != nil {
-		return nil, err
-	}
-	v, err := ShareValues[T](b)
-	if err != nil {
-		return nil, fmt.Errorf("section %q: %w", name, err)
-	}
-	return v, nil
+	return sectionValues(sections, name, ShareValues[T])
 }
 
 // SectionValues looks up the section called name (see Lookup) and decodes
 // its bytes with DecodeValues. Errors name the section.
 func SectionValues[T Element](sections []Section, name string) ([]T, error) {
+	return sectionValues(sections, name, DecodeValues[T])
+}
+
+// sectionValues looks up the section called name and turns its bytes into
+// values with decode; errors name the section.
+func sectionValues[T Element](sections []Section, name string, decode func([]byte) ([]T, error)) ([]T, error) {
 	b, err := Lookup(sections, name)
 	if err != nil {
 		return nil, err
 	}
-	v, err := DecodeValues[T](b)
+	v, err := decode(b)
 	if err != nil {
 		return nil, fmt.Errorf("section %q: %w", name, err)
 	}
