@@ -60,6 +60,9 @@ type (
 	InputError = ingest.InputError
 	// PerplexityError reports a perplexity too large for the table.
 	PerplexityError = knn.PerplexityError
+	// TooFewRowsError reports a table too small for the uniform affinities'
+	// neighbours.
+	TooFewRowsError = knn.TooFewRowsError
 	// ZeroRowError reports an all-zero row under the cosine metric.
 	ZeroRowError = knn.ZeroRowError
 	// TooLargeError reports a table too large for the exact neighbour search.
@@ -80,6 +83,7 @@ func IsUserFault(err error) bool {
 		dir   *RunDirError
 		in    *ingest.InputError
 		perp  *knn.PerplexityError
+		few   *knn.TooFewRowsError
 		bad   *checkpoint.CorruptError
 		ver   *checkpoint.VersionError
 		kind  *checkpoint.KindError
@@ -89,7 +93,7 @@ func IsUserFault(err error) bool {
 		held  *checkpoint.HeldError
 		mem   *MemoryError
 	)
-	return errors.As(err, &set) || errors.As(err, &dir) || errors.As(err, &in) || errors.As(err, &perp) ||
+	return errors.As(err, &set) || errors.As(err, &dir) || errors.As(err, &in) || errors.As(err, &perp) || errors.As(err, &few) ||
 		errors.As(err, &bad) || errors.As(err, &ver) || errors.As(err, &kind) || errors.As(err, &magic) ||
 		errors.As(err, &big) || errors.As(err, &zero) || errors.As(err, &held) || errors.As(err, &mem)
 }

@@ -115,7 +115,7 @@ const AssumedEntriesPerRow = 1.6
 // demo rows, 19.38 GiB against 17.90 GiB at 10,000,000.
 func EstimateMemory(rows, features int, s Settings, entries int64) MemoryEstimate {
 	n, d := int64(rows), int64(features)
-	k := int64(knn.Neighbours(s.Perplexity, rows))
+	k := int64(s.neighbourCount(rows))
 	e := MemoryEstimate{Rows: rows, Features: features, Neighbours: int(k), Entries: entries, Counted: entries > 0}
 	if rows < 1 || features < 1 {
 		return e

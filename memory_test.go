@@ -49,6 +49,32 @@ func TestEstimateMemoryHandWorked(t *testing.T) {
 	}
 }
 
+// TestEstimateMemoryUniform works the same 1,000 × 10 table by hand with
+// uniform affinities over 15 neighbours: graph 8·1,000·15 = 120,000,
+// NN-descent's work arrays 1,000·(15 + 16·8 + 48) = 191,000, affinities
+// (1.6·15·1,000 = 24,000 entries assumed) 8·24,000 + 8·1,001 = 200,008,
+// their renumbering 4·24,000 + 8·1,001 = 104,008; the rest as above.
+func TestEstimateMemoryUniform(t *testing.T) {
+	s := DefaultSettings()
+	s.Neighbours, s.Repulsion, s.UniformNeighbours = "descent", "tree", 15
+	e := EstimateMemory(1000, 10, s, 0)
+	phase := func(sum float64) int64 { return int64(MemorySlack*sum) + MemoryBase }
+	want := map[string]int64{
+		"neighbours": phase(40_000 + 120_000 + 191_000),
+		"affinities": phase(120_000 + 200_008),
+		"optimiser":  phase(200_008 + 104_008 + 288_000),
+		"scores":     phase(40_000 + 16_000),
+	}
+	if e.Entries != 24_000 || e.Neighbours != 15 {
+		t.Fatalf("entries %d, k %d; want 24000 assumed, k 15", e.Entries, e.Neighbours)
+	}
+	for _, ph := range e.Phases {
+		if ph.Bytes != want[ph.Phase] {
+			t.Errorf("%s: %d bytes, want %d", ph.Phase, ph.Bytes, want[ph.Phase])
+		}
+	}
+}
+
 // TestEstimateMemoryParts: the parts the estimate counts for the features,
 // the neighbour graph and the affinities are the sizes of the arrays a run
 // really holds (an exact graph and its affinities on 1,500 rows).

@@ -110,7 +110,7 @@ func (j *job) readInput(resumed bool) error {
 // checkTable refuses, before any work is done on it, a table too small for
 // the perplexity or, under the cosine metric, with an all-zero row.
 func checkTable(s Settings, t *ingest.Table) error {
-	if err := knn.CheckPerplexity(s.Perplexity, t.N); err != nil {
+	if err := s.checkRows(t.N); err != nil {
 		return fmt.Errorf("%s: %w", s.Input, err)
 	}
 	if m, _ := knn.ParseMetric(s.Metric); m == knn.Cosine {
@@ -163,8 +163,8 @@ func readTable(s Settings, threads int, progress func(done, total int64)) (*inge
 // neighbour graph (itself loaded, or computed and saved) and saves it.
 func (j *job) affinities() (CSR, error) {
 	n := j.table.N
-	k := knn.Neighbours(j.s.Perplexity, n)
-	if err := knn.CheckPerplexity(j.s.Perplexity, n); err != nil {
+	k := j.s.neighbourCount(n)
+	if err := j.s.checkRows(n); err != nil {
 		return CSR{}, fmt.Errorf("%s: %w", j.s.Input, err)
 	}
 	if p, ok := j.loadP(); ok {
@@ -194,7 +194,7 @@ func (j *job) affinities() (CSR, error) {
 	// conditional probabilities.
 	var P *CSR
 	err := j.await(func() (err error) {
-		P, err = knn.AffinityConsume(g, j.s.Perplexity, j.rt.Threads)
+		P, err = j.s.consumeAffinity(g, j.rt.Threads)
 		return err
 	})
 	j.freeMemory()
@@ -207,7 +207,7 @@ func (j *job) affinities() (CSR, error) {
 		return CSR{}, err
 	}
 	j.rep.PhaseMemory["affinities"] = peakMemory()
-	j.obs.Note(fmt.Sprintf("affinities: perplexity %g, %d entries, %.1fs", j.s.Perplexity, len(P.Vals), j.rep.Affinities.Seconds))
+	j.obs.Note(fmt.Sprintf("affinities: %s, %d entries, %.1fs", j.s.affinityNote(), len(P.Vals), j.rep.Affinities.Seconds))
 	return *P, nil
 }
 

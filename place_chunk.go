@@ -14,7 +14,6 @@ import (
 
 	"nightjar/checkpoint"
 	"nightjar/internal/par"
-	"nightjar/knn"
 )
 
 // placeChunk is the number of new rows placed and saved at a time: a kill
@@ -175,13 +174,14 @@ const startNeighbours = 10
 // nearest, and counts the neighbours' labels weighted by P_{j|i}.
 func (j *placeJob) startRows(idx []int32, d2 []float32, p []float64, res *placed) {
 	k, d, n := j.k, j.ref.s.Dims, res.n()
+	calibrate := j.ref.s.calibration()
 	par.Blocks(n, 256, j.rt.Threads, func(_, _, lo, hi int) {
 		m := min(k, startNeighbours)
 		coord := make([]float64, m)
 		weight := make([]float64, len(j.ref.classes))
 		for i := lo; i < hi; i++ {
 			nb, pi := idx[i*k:(i+1)*k], p[i*k:(i+1)*k]
-			knn.Calibrate(pi, d2[i*k:(i+1)*k], j.ref.s.Perplexity)
+			calibrate(pi, d2[i*k:(i+1)*k])
 			for c := range d {
 				for a, l := range nb[:m] {
 					coord[a] = j.ref.y[int(l)*d+c]

@@ -137,8 +137,9 @@ func (ref *reference) metric() knn.Metric {
 }
 
 // k returns the number of reference neighbours of a new row:
-// min(N − 1, ⌊3·perplexity⌋) with the reference's perplexity.
-func (ref *reference) k() int { return knn.Neighbours(ref.s.Perplexity, ref.feat.X.N) }
+// min(N − 1, ⌊3·perplexity⌋) with the reference's perplexity, or its uniform
+// neighbours' count.
+func (ref *reference) k() int { return ref.s.neighbourCount(ref.feat.X.N) }
 
 // autoExactReference is the largest reference whose neighbours "auto"
 // finds by the exact search. Measured on 2 cores with k = 90 on the demo

@@ -58,6 +58,7 @@ func TestAffinityKey(t *testing.T) {
 	}
 	for name, change := range map[string]func(*Settings){
 		"perplexity": func(s *Settings) { s.Perplexity = 10 },
+		"uniform":    func(s *Settings) { s.UniformNeighbours = 15 },
 		"metric":     func(s *Settings) { s.Metric = "cosine" },
 		"neighbours": func(s *Settings) { s.Neighbours = "descent" },
 		"input":      func(s *Settings) { s.Input = "other.parquet" },

@@ -31,12 +31,15 @@ type Settings struct {
 	SkipInvalid bool     `json:"skip_invalid" flag:"skip-invalid" help:"drop rows with NaN, Inf or empty features instead of stopping, and report how many" topic:"input"`
 	Reduce      int      `json:"reduce" flag:"reduce" help:"project the features onto their first N principal components while reading, in streamed passes (randomised above 500 features); -1 = automatic: 50 components for a table of more than 100 features, none for a narrower one; 0 = keep every feature" topic:"input"`
 
-	Dims        int     `json:"dims" flag:"dims" help:"dimensions of the map: 2 or 3" topic:"map"`
-	Perplexity  float64 `json:"perplexity" flag:"perplexity" help:"effective number of neighbours each row keeps (needs at least 3·perplexity+1 rows)" topic:"neighbours"`
-	Neighbours  string  `json:"neighbours" flag:"neighbours" help:"neighbour search: exact; descent (NN-descent started from random projection trees, repeatable bit for bit); hnsw (an HNSW index on a sample of rows gives starting candidates, refined by NN-descent; not bit-repeatable); auto = exact up to 50,000 rows, else descent" topic:"neighbours"`
-	Metric      string  `json:"metric" flag:"metric" help:"distance between rows: euclidean or cosine" topic:"neighbours"`
-	CheckRecall int     `json:"check_recall" flag:"check-recall" help:"rows sampled to measure the recall of approximate neighbours (0 = off)" topic:"neighbours"`
-	RecallGoal  float64 `json:"recall_goal" flag:"recall-goal" help:"approximate neighbours: refine until the recall estimated on 300 sampled rows reaches this, or six passes (1 = until a pass changes almost nothing)" topic:"neighbours"`
+	Dims       int     `json:"dims" flag:"dims" help:"dimensions of the map: 2 or 3" topic:"map"`
+	Perplexity float64 `json:"perplexity" flag:"perplexity" help:"effective number of neighbours each row keeps (needs at least 3·perplexity+1 rows)" topic:"neighbours"`
+	// UniformNeighbours is absent from manifests written before it
+	// existed, and from those of runs that leave it at 0.
+	UniformNeighbours int     `json:"uniform_neighbours,omitempty" flag:"uniform-neighbours" help:"0 = affinities calibrated by --perplexity; N > 0 = the same weight for each of a row's N nearest neighbours instead, symmetrised (Böhm, Berens & Kobak 2022): 15 keeps a sixth of the graph and affinities of perplexity 30, for tables that would not fit in memory otherwise" topic:"neighbours"`
+	Neighbours        string  `json:"neighbours" flag:"neighbours" help:"neighbour search: exact; descent (NN-descent started from random projection trees, repeatable bit for bit); hnsw (an HNSW index on a sample of rows gives starting candidates, refined by NN-descent; not bit-repeatable); auto = exact up to 50,000 rows, else descent" topic:"neighbours"`
+	Metric            string  `json:"metric" flag:"metric" help:"distance between rows: euclidean or cosine" topic:"neighbours"`
+	CheckRecall       int     `json:"check_recall" flag:"check-recall" help:"rows sampled to measure the recall of approximate neighbours (0 = off)" topic:"neighbours"`
+	RecallGoal        float64 `json:"recall_goal" flag:"recall-goal" help:"approximate neighbours: refine until the recall estimated on 300 sampled rows reaches this, or six passes (1 = until a pass changes almost nothing)" topic:"neighbours"`
 
 	Iterations      int     `json:"iterations" flag:"steps" help:"optimiser steps in all, the early phase included" topic:"optimiser"`
 	EarlyIterations int     `json:"early_iterations" flag:"early-steps" help:"steps of the early phase (early exaggeration and early momentum)" topic:"optimiser"`
@@ -86,6 +89,9 @@ func (s *Settings) Validate() error {
 	if !(s.Perplexity > 1) || math.IsInf(s.Perplexity, 0) {
 		return bad("perplexity", "must be above 1, got %g", s.Perplexity)
 	}
+	if s.UniformNeighbours < 0 {
+		return bad("uniform-neighbours", "must be 0 (off) or a number of neighbours, got %d", s.UniformNeighbours)
+	}
 	if s.Neighbours != "auto" {
 		if _, err := knn.ParseMethod(s.Neighbours); err != nil {
 			return bad("neighbours", "must be auto, exact, descent or hnsw, got %q", s.Neighbours)
@@ -121,6 +127,63 @@ func (s *Settings) Validate() error {
 		return bad("steps", "(%d) must be at least 1 and at least --early-steps (%d)", s.Iterations, s.EarlyIterations)
 	}
 	return nil
+}
+
+// neighbourCount returns the number of neighbours each of n rows keeps:
+// UniformNeighbours when set, else ⌊3·perplexity⌋ (knn.Neighbours); at most
+// n−1, and 0 for n < 2.
+func (s Settings) neighbourCount(n int) int {
+	if s.UniformNeighbours > 0 {
+		return max(min(s.UniformNeighbours, n-1), 0)
+	}
+	return knn.Neighbours(s.Perplexity, n)
+}
+
+// checkRows refuses a table of n rows too small for the affinities: a
+// *knn.PerplexityError (3·perplexity > n−1) or, with uniform affinities, a
+// *knn.TooFewRowsError.
+func (s Settings) checkRows(n int) error {
+	if s.UniformNeighbours > 0 {
+		return knn.CheckNeighbours(s.UniformNeighbours, n)
+	}
+	return knn.CheckPerplexity(s.Perplexity, n)
+}
+
+// LeastRows is the fewest rows a table needs for the affinities: 3·perplexity
+// + 1 rounded up, or UniformNeighbours + 1.
+func (s Settings) LeastRows() int {
+	if s.UniformNeighbours > 0 {
+		return s.UniformNeighbours + 1
+	}
+	return int(math.Ceil(3*s.Perplexity)) + 1
+}
+
+// consumeAffinity turns g into P as the settings say (knn.AffinityConsume
+// or knn.UniformAffinityConsume), leaving g empty.
+func (s Settings) consumeAffinity(g *Graph, threads int) (*CSR, error) {
+	if s.UniformNeighbours > 0 {
+		return knn.UniformAffinityConsume(g, threads)
+	}
+	return knn.AffinityConsume(g, s.Perplexity, threads)
+}
+
+// calibration returns how a row's conditional probabilities p_{j|i} over
+// its neighbours come from their squared distances d2: knn.Calibrate with
+// the perplexity, or knn.UniformRow.
+func (s Settings) calibration() func(p []float64, d2 []float32) {
+	if s.UniformNeighbours > 0 {
+		return knn.UniformRow
+	}
+	perp := s.Perplexity
+	return func(p []float64, d2 []float32) { knn.Calibrate(p, d2, perp) }
+}
+
+// affinityNote describes the affinities for the log.
+func (s Settings) affinityNote() string {
+	if s.UniformNeighbours > 0 {
+		return fmt.Sprintf("uniform over %d neighbours", s.UniformNeighbours)
+	}
+	return fmt.Sprintf("perplexity %g", s.Perplexity)
 }
 
 // fillLegacy gives fields absent from an older manifest their meaning.

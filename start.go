@@ -42,9 +42,12 @@ func (j *job) subsampleStart(P CSR) ([]float64, error) {
 	for _, i := range rows {
 		sub.Data = append(sub.Data, x.Row(i)...)
 	}
-	// The subsample's own perplexity, lowered if it has too few rows.
-	perp := min(j.s.Perplexity, float64(m-1)/3)
-	k := knn.Neighbours(perp, m)
+	// The subsample's own perplexity (or uniform neighbours), lowered if
+	// it has too few rows.
+	own := j.s
+	own.Perplexity = min(j.s.Perplexity, float64(m-1)/3)
+	k := own.neighbourCount(m)
+	own.UniformNeighbours = min(own.UniformNeighbours, k)
 	metric, _ := knn.ParseMetric(j.s.Metric)
 	method := knn.ByDescent
 	if m <= knn.ExactLimit/4 {
@@ -54,7 +57,7 @@ func (j *job) subsampleStart(P CSR) ([]float64, error) {
 	if err != nil {
 		return nil, fmt.Errorf("subsample start: %w", err)
 	}
-	Psub, err := knn.AffinityConsume(g, perp, threads)
+	Psub, err := own.consumeAffinity(g, threads)
 	if err != nil {
 		return nil, fmt.Errorf("subsample start: %w", err)
 	}

@@ -54,6 +54,31 @@ func CheckPerplexity(perplexity float64, n int) error {
 	return nil
 }
 
+// TooFewRowsError reports a table with too few rows for the number of
+// neighbours asked of each row: a row has at most Rows−1 others.
+type TooFewRowsError struct {
+	Rows       int
+	Neighbours int
+}
+
+// Error says how many neighbours would work.
+func (e *TooFewRowsError) Error() string {
+	return fmt.Sprintf("%d neighbours per row need at least %d rows, the table has %d: use at most %d neighbours",
+		e.Neighbours, e.Neighbours+1, e.Rows, max(e.Rows-1, 0))
+}
+
+// CheckNeighbours returns nil if each of n rows can have k neighbours
+// (1 ≤ k ≤ n−1), else a *TooFewRowsError (or a plain error for k < 1).
+func CheckNeighbours(k, n int) error {
+	if k < 1 {
+		return fmt.Errorf("%d neighbours per row: at least 1 is needed", k)
+	}
+	if k > n-1 {
+		return &TooFewRowsError{Rows: n, Neighbours: k}
+	}
+	return nil
+}
+
 // Calibration constants (van der Maaten & Hinton 2008, JMLR 9, §2: σ_i found by
 // binary search to match the perplexity; the tolerance and step cap are
 // common practice).
@@ -169,7 +194,11 @@ const affinityBlock = 1024
 // their conditional probabilities, and 4·N bytes of counters. At N = 10⁶,
 // K = 90 that is 720 MB, and P itself 8 bytes per entry, at most 1.44 GB.
 func Affinity(g *core.Graph, perplexity float64, threads int) (*core.CSR, error) {
-	return affinity(g, perplexity, threads, false)
+	cal, err := perplexityRows(g, perplexity)
+	if err != nil {
+		return nil, err
+	}
+	return affinity(g, cal, threads, false)
 }
 
 // AffinityConsume is Affinity for a graph that is no longer needed: it keeps
@@ -178,22 +207,82 @@ func Affinity(g *core.Graph, perplexity float64, threads int) (*core.CSR, error)
 // K = 90), and leaves g with nil Index and Dist2, on success and on error.
 // The result is the same as Affinity's, bit for bit.
 func AffinityConsume(g *core.Graph, perplexity float64, threads int) (*core.CSR, error) {
-	p, err := affinity(g, perplexity, threads, true)
+	cal, err := perplexityRows(g, perplexity)
+	var p *core.CSR
+	if err == nil {
+		p, err = affinity(g, cal, threads, true)
+	}
 	if g != nil {
 		g.Index, g.Dist2 = nil, nil
 	}
 	return p, err
 }
 
-func affinity(g *core.Graph, perplexity float64, threads int, reuse bool) (*core.CSR, error) {
-	if g == nil || g.N < 2 || g.K < 1 || g.K >= g.N || len(g.Index) != g.N*g.K || len(g.Dist2) != g.N*g.K {
-		return nil, fmt.Errorf("affinities: malformed neighbour graph")
+// UniformAffinity is Affinity with the uniform conditional probabilities
+//
+//	p_{j|i} = 1/K for the K neighbours j of row i, 0 otherwise,
+//
+// symmetrised as there, p_ij = (p_{j|i} + p_{i|j}) / 2N: every entry is
+// 1/(2NK) (one-way edge) or 1/(NK) (mutual neighbours). Böhm, Berens & Kobak
+// ("Attraction-repulsion spectrum in neighbor embeddings", JMLR 23, 2022)
+// show that t-SNE maps made with such affinities over a small K (they use
+// K = 15) are close to those calibrated by perplexity; with K = 15 instead of
+// ⌊3·30⌋ = 90 the graph and P hold about a sixth of the entries. Distances
+// are checked as in Affinity but not used; duplicate rows are neighbours
+// like any other. The preconditions, the result's layout and its
+// bit-identity for any threads are Affinity's, without the perplexity.
+func UniformAffinity(g *core.Graph, threads int) (*core.CSR, error) {
+	return affinity(g, UniformRow, threads, false)
+}
+
+// UniformAffinityConsume is UniformAffinity for a graph that is no longer
+// needed, as AffinityConsume is for Affinity.
+func UniformAffinityConsume(g *core.Graph, threads int) (*core.CSR, error) {
+	p, err := affinity(g, UniformRow, threads, true)
+	if g != nil {
+		g.Index, g.Dist2 = nil, nil
+	}
+	return p, err
+}
+
+// A rowCalibration writes the conditional probabilities p_{j|i} of one row
+// into p, given the row's squared neighbour distances d2.
+type rowCalibration func(p []float64, d2 []float32)
+
+// perplexityRows checks a perplexity against g and returns the calibration
+// by Calibrate.
+func perplexityRows(g *core.Graph, perplexity float64) (rowCalibration, error) {
+	if err := checkGraph(g); err != nil {
+		return nil, err
 	}
 	if err := CheckPerplexity(perplexity, g.N); err != nil {
 		return nil, err
 	}
 	if perplexity > float64(g.K) {
 		return nil, fmt.Errorf("affinities: perplexity %g exceeds the %d neighbours per row of the graph", perplexity, g.K)
+	}
+	return func(p []float64, d2 []float32) { Calibrate(p, d2, perplexity) }, nil
+}
+
+// UniformRow writes the uniform conditional probabilities 1/len(p) into p
+// (the distances d2 are not used): UniformAffinity's p_{j|i}, for a row
+// outside the graph such as a new row placed into a finished map.
+func UniformRow(p []float64, d2 []float32) {
+	for j := range p {
+		p[j] = 1 / float64(len(p))
+	}
+}
+
+func checkGraph(g *core.Graph) error {
+	if g == nil || g.N < 2 || g.K < 1 || g.K >= g.N || len(g.Index) != g.N*g.K || len(g.Dist2) != g.N*g.K {
+		return fmt.Errorf("affinities: malformed neighbour graph")
+	}
+	return nil
+}
+
+func affinity(g *core.Graph, cal rowCalibration, threads int, reuse bool) (*core.CSR, error) {
+	if err := checkGraph(g); err != nil {
+		return nil, err
 	}
 	threads = max(1, threads)
 	// With reuse the conditional probabilities overwrite the graph row by
@@ -204,7 +293,7 @@ func affinity(g *core.Graph, perplexity float64, threads int, reuse bool) (*core
 	} else {
 		c.cols, c.vals = make([]int32, g.N*g.K), make([]float32, g.N*g.K)
 	}
-	if err := c.fill(g, perplexity, threads); err != nil {
+	if err := c.fill(g, cal, threads); err != nil {
 		return nil, err
 	}
 	P := c.layout(threads)
@@ -228,7 +317,7 @@ type colVal struct {
 
 // fill calibrates every row of g and stores its probabilities sorted by
 // column, checking distances and neighbour numbers on the way.
-func (c *conditionals) fill(g *core.Graph, perplexity float64, threads int) error {
+func (c *conditionals) fill(g *core.Graph, cal rowCalibration, threads int) error {
 	n, k := c.n, c.k
 	var errs par.FirstError
 	par.Blocks(n, affinityBlock, threads, func(_, _, lo, hi int) {
@@ -242,7 +331,7 @@ func (c *conditionals) fill(g *core.Graph, perplexity float64, threads int) erro
 					return
 				}
 			}
-			Calibrate(p, d2, perplexity)
+			cal(p, d2)
 			for j, col := range g.Index[i*k : (i+1)*k] {
 				pairs[j] = colVal{col, float32(p[j])}
 			}

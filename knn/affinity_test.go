@@ -366,3 +366,103 @@ func TestAffinityErrors(t *testing.T) {
 		t.Errorf("undamaged graph: %v", err)
 	}
 }
+
+// TestUniformAffinity checks UniformAffinity against its dense definition
+// (Böhm, Berens & Kobak, JMLR 23, 2022: p_{j|i} = 1/K over the K nearest
+// neighbours, symmetrised as van der Maaten & Hinton 2008, JMLR 9, §3),
+// built here from the neighbour lists alone: every entry is 1/(2NK) or
+// 1/(NK). A second, independent route: the only distribution over K
+// neighbours whose perplexity is K is the uniform one (its entropy ln K is
+// the largest), so Affinity calibrated to perplexity K must come out
+// uniform too, within the calibration's tolerance. Duplicate rows are
+// valid neighbours here like any other.
+func TestUniformAffinity(t *testing.T) {
+	tests := []struct {
+		name string
+		n, k int
+		dup  bool
+	}{
+		{"random", 500, 15, false},
+		{"duplicates", 400, 7, true},
+		{"k = N−1", 30, 29, false},
+		{"k = 1", 60, 1, false},
+		{"k = 30, calibrated too", 200, 30, false},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			x := randMatrix(tc.n, 4, 83, 0, 1)
+			if tc.dup {
+				x = withDuplicates(x)
+			}
+			g, err := Exact(x, tc.k, ExactOptions{})
+			if err != nil {
+				t.Fatal(err)
+			}
+			P, err := UniformAffinity(g, 2)
+			if err != nil {
+				t.Fatal(err)
+			}
+			n, k := tc.n, tc.k
+			dense := make([]float64, n*n)
+			for i := range n {
+				for _, j := range g.Index[i*k : (i+1)*k] {
+					dense[i*n+int(j)] += 1 / (2 * float64(n) * float64(k))
+					dense[int(j)*n+i] += 1 / (2 * float64(n) * float64(k))
+				}
+			}
+			var sum float64
+			count := 0
+			for i := range n {
+				for pos := P.Offsets[i]; pos < P.Offsets[i+1]; pos++ {
+					j, v := int(P.Cols[pos]), float64(P.Vals[pos])
+					if want := dense[i*n+j]; math.Abs(v-want) > 0x1p-23*want {
+						t.Fatalf("P[%d,%d] = %g, dense definition %g", i, j, v, want)
+					}
+					if float32(v) != lookup(P, j, i) {
+						t.Fatalf("P[%d,%d] ≠ P[%d,%d]", i, j, j, i)
+					}
+					sum += v
+				}
+			}
+			for _, v := range dense {
+				if v != 0 {
+					count++
+				}
+			}
+			if len(P.Vals) != count {
+				t.Errorf("%d entries, the dense definition has %d", len(P.Vals), count)
+			}
+			if math.Abs(sum-1) > 0x1p-23 {
+				t.Errorf("Σ P = %.12f", sum)
+			}
+			// p_j = (1+ε_j)/K has entropy ln K − Σ ε_j²/2K to second
+			// order, so the calibration's tolerance allows
+			// |ε_j| ≤ √(2K·EntropyTolerance), and symmetrising averages two
+			// such rows.
+			if k >= 2 && 3*k <= n-1 {
+				calibrated, err := Affinity(g, float64(k), 1)
+				if err != nil {
+					t.Fatal(err)
+				}
+				if !slices.Equal(calibrated.Cols, P.Cols) {
+					t.Fatal("perplexity K: other entries than the uniform affinities")
+				}
+				worst := 0.0
+				for e, v := range calibrated.Vals {
+					worst = max(worst, math.Abs(float64(v)/float64(P.Vals[e])-1))
+				}
+				if bound := math.Sqrt(2 * float64(k) * EntropyTolerance); worst > bound {
+					t.Errorf("perplexity K departs from uniform by %.3g relative, more than %.3g", worst, bound)
+				}
+				t.Logf("perplexity %d against uniform: largest relative difference %.2g", k, worst)
+			}
+			again, err := UniformAffinityConsume(g, 1)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if !slices.Equal(again.Cols, P.Cols) || !slices.Equal(again.Vals, P.Vals) || g.Index != nil {
+				t.Error("UniformAffinityConsume on 1 thread: other bits, or the graph kept")
+			}
+		})
+	}
+}

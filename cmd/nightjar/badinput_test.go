@@ -51,6 +51,7 @@ func TestBadInput(t *testing.T) {
 		{"missing label column", "good.csv", nil, []string{"--label", "kind"}, []string{"kind"}},
 		{"empty table", "empty.csv", []byte("id,f1,f2,f3\n"), nil, []string{"0 rows"}},
 		{"too few rows", "few.csv", []byte(csvTable(40, 0, 0, "")), nil, []string{"perplexity", "13"}},
+		{"too few rows, uniform", "few.csv", nil, []string{"--perplexity", "5", "--uniform-neighbours", "40"}, []string{"40 neighbours", "at most 39"}},
 		{"truncated parquet", "cut.parquet", demoBytes[:len(demoBytes)/2], nil, []string{"truncated"}},
 		{"foreign file", "picture.png", png, nil, []string{"not a"}},
 		{"no such file", "absent.csv", nil, nil, []string{"no such file"}},

@@ -24,7 +24,7 @@ func runPredict(ctx context.Context, o *benchOptions, stdout io.Writer) error {
 		return err
 	}
 	if o.data == "demo" && o.rows > 0 {
-		if _, err := ladderSizes(ps, o.rows, o.s.Perplexity); err != nil {
+		if _, err := ladderSizes(ps, o.rows, o.s); err != nil {
 			return err // before the table is written
 		}
 	}
@@ -32,7 +32,7 @@ func runPredict(ctx context.Context, o *benchOptions, stdout io.Writer) error {
 	if err != nil {
 		return err
 	}
-	sizes, err := ladderSizes(ps, full.Rows, o.s.Perplexity)
+	sizes, err := ladderSizes(ps, full.Rows, o.s)
 	if err != nil {
 		return err
 	}
@@ -109,13 +109,17 @@ func ladderPercents(spec string) ([]float64, error) {
 
 // ladderSizes turns the --ladder percentages into row counts, smallest
 // first, each large enough for the perplexity.
-func ladderSizes(ps []float64, rows int, perplexity float64) ([]int, error) {
-	least := max(int(3*perplexity)+2, 100)
+func ladderSizes(ps []float64, rows int, s nightjar.Settings) ([]int, error) {
+	least := max(s.LeastRows()+1, 100)
+	need := fmt.Sprintf("perplexity %g", s.Perplexity)
+	if s.UniformNeighbours > 0 {
+		need = fmt.Sprintf("%d uniform neighbours", s.UniformNeighbours)
+	}
 	var sizes []int
 	for _, p := range ps {
 		n := int(math.Round(p / 100 * float64(rows)))
 		if n < least {
-			return nil, usagef("bench: --ladder %g%% of %d rows is %d rows; perplexity %g needs at least %d (use %.2g%% or more)", p, rows, n, perplexity, least, 100*float64(least)/float64(rows))
+			return nil, usagef("bench: --ladder %g%% of %d rows is %d rows; %s needs at least %d (use %.2g%% or more)", p, rows, n, need, least, 100*float64(least)/float64(rows))
 		}
 		if slices.Contains(sizes, n) {
 			return nil, usagef("bench: --ladder has two sizes of %d rows", n)
