@@ -37,6 +37,9 @@ func (j *placeJob) finish(all *placed, tablePath string) (*PlaceResult, error) {
 		r := float64(all.hits) / float64(all.probes*int64(j.k))
 		j.rep.Neighbours.Recall, j.rep.Neighbours.RecallSample, j.rep.Neighbours.RecallHits = &r, int(all.probes), all.hits
 		j.obs.Note(fmt.Sprintf("neighbour recall@%d = %.4f on %d sampled new rows", j.k, r, all.probes))
+		if r < placeRecallWarn {
+			j.obs.Warn(fmt.Sprintf("neighbour recall@%d = %.4f is below %.2f: the index misses neighbours of these new rows, as it does for rows far from every reference row (a population or batch the reference lacks); their placement and label votes are less sure. --neighbours exact finds them exactly, at a cost that grows with the reference's rows", j.k, r, placeRecallWarn))
+		}
 	}
 	res := &PlaceResult{Dir: j.dir, Placed: tablePath, Report: &j.rep}
 	var own []string

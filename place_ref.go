@@ -141,6 +141,11 @@ func (ref *reference) metric() knn.Metric {
 // neighbours' count.
 func (ref *reference) k() int { return ref.s.neighbourCount(ref.feat.X.N) }
 
+// placeRecallWarn is the measured recall of new rows' neighbours below
+// which a placement warns: 0.95, the recall asked of the index for rows
+// like the reference's own (common practice for approximate neighbours).
+const placeRecallWarn = 0.95
+
 // autoExactReference is the largest reference whose neighbours "auto"
 // finds by the exact search. Measured on 2 cores with k = 90 on the demo
 // survey (50 features): the exact search took 0.84 ms per new row against a

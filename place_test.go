@@ -8,6 +8,7 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"sync"
 	"sync/atomic"
@@ -283,5 +284,37 @@ func TestPlaceShardsOfParts(t *testing.T) {
 	b, _ := os.ReadFile(merged.Placed)
 	if len(a) == 0 || !bytes.Equal(a, b) {
 		t.Fatal("the merged placement of the parts differs from the whole placement")
+	}
+}
+
+// TestPlaceFarRowsWarn: new rows of another invented survey (another seed
+// of the demo's model, so populations the reference lacks) are far from
+// every reference row; the index finds fewer of their exact neighbours, and
+// the placement says so with the remedy, while the same rows placed with
+// the exact search have nothing to warn about.
+func TestPlaceFarRowsWarn(t *testing.T) {
+	fx := demoPlacement(t)
+	dir := t.TempDir()
+	path := filepath.Join(dir, "far.parquet")
+	writePlaceTable(t, path, bench.Demo(1500, 7, 2))
+	for _, how := range []string{"index", "exact"} {
+		ps := DefaultPlaceSettings()
+		ps.Neighbours = how
+		obs := &notes{}
+		res, err := Place(context.Background(), fx.ref, FromFile(path), filepath.Join(dir, how), ps, placeRuntime(2), obs)
+		if err != nil {
+			t.Fatal(err)
+		}
+		warned := slices.ContainsFunc(obs.warn, func(w string) bool { return strings.Contains(w, "--neighbours exact") })
+		r := res.Report.Neighbours.Recall
+		if r != nil {
+			t.Logf("%s: recall %.4f, warned %v", how, *r, warned)
+		}
+		if how == "index" && (r == nil || *r >= placeRecallWarn || !warned) {
+			t.Errorf("index: recall %v, warned %v; want a recall below %.2f and the warning", r, warned, placeRecallWarn)
+		}
+		if how == "exact" && warned {
+			t.Errorf("exact: warned %q", obs.warn)
+		}
 	}
 }
