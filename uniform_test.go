@@ -132,3 +132,35 @@ func TestUniformTooFewRows(t *testing.T) {
 	}
 	t.Log(err)
 }
+
+// TestUniformSubsampleStart: the subsample start maps its sample with the
+// run's own kind of affinities; with uniform ones over 12 neighbours, a
+// start sample of 150 rows and 1 or 3 threads, the run ends with the same
+// bits (the promise of the par package) and three separated groups keep
+// their neighbours (10-NN label accuracy in the map ≥ 0.95: the groups are
+// 8 standard deviations apart, so the input's accuracy is 1 — common
+// practice for a sanity bound).
+func TestUniformSubsampleStart(t *testing.T) {
+	x, lab := blobs(900, 5, 7)
+	s := DefaultSettings()
+	s.UniformNeighbours, s.Start, s.StartRows = 12, "subsample", 150
+	s.Iterations, s.EarlyIterations = 150, 50
+	var maps [2][]float64
+	for i, th := range []int{1, 3} {
+		rt := DefaultRuntime()
+		rt.Threads, rt.ScoreSample = th, 300
+		res, err := Embed(context.Background(), FromMatrix(x, nil, lab), filepath.Join(t.TempDir(), "run"), s, rt, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		maps[i] = res.Map
+		if q := res.Report.Quality; q == nil || q.LabelAccuracyMap == nil || *q.LabelAccuracyMap < 0.95 {
+			t.Fatalf("%d threads: quality %+v, want 10-NN label accuracy ≥ 0.95", th, q)
+		}
+	}
+	for i := range maps[0] {
+		if math.Float64bits(maps[0][i]) != math.Float64bits(maps[1][i]) {
+			t.Fatalf("value %d: 1 thread %v, 3 threads %v", i, maps[0][i], maps[1][i])
+		}
+	}
+}
