@@ -15,8 +15,9 @@ import (
 )
 
 // TestEstimateMemoryHandWorked: the table of EstimateMemory's document,
-// worked by hand for 1,000 rows × 10 features, perplexity 30 (k = 90),
-// NN-descent and the tree, 2-D: features 4·1,000·10 = 40,000 bytes, graph
+// worked by hand for 1,000 rows × 10 features, NN-descent and the tree, 2-D.
+//
+// Perplexity 30 (k = 90): features 4·1,000·10 = 40,000 bytes, graph
 // 8·1,000·90 = 720,000, NN-descent's work arrays 1,000·(90 + 16·45 + 48)
 // = 858,000, affinities (1.6·90·1,000 = 144,000 entries assumed)
 // 8·144,000 + 8·1,001 = 1,160,008, their renumbering 4·144,000 + 8·1,001
@@ -25,53 +26,50 @@ import (
 // 288,000; the scores read the features back (40,000) beside the map
 // (8·1,000·2 = 16,000). The features are not held after the neighbour
 // search.
-func TestEstimateMemoryHandWorked(t *testing.T) {
-	s := DefaultSettings()
-	s.Neighbours, s.Repulsion = "descent", "tree"
-	e := EstimateMemory(1000, 10, s, 0)
-	phase := func(sum float64) int64 { return int64(MemorySlack*sum) + MemoryBase }
-	want := map[string]int64{
-		"neighbours": phase(40_000 + 720_000 + 858_000),
-		"affinities": phase(720_000 + 1_160_008),
-		"optimiser":  phase(1_160_008 + 584_008 + 288_000),
-		"scores":     phase(40_000 + 16_000),
-	}
-	if e.Entries != 144_000 || e.Counted || e.Neighbours != 90 {
-		t.Fatalf("entries %d (counted %v), k %d; want 144000 assumed, k 90", e.Entries, e.Counted, e.Neighbours)
-	}
-	for _, ph := range e.Phases {
-		if ph.Bytes != want[ph.Phase] {
-			t.Errorf("%s: %d bytes, want %d", ph.Phase, ph.Bytes, want[ph.Phase])
-		}
-	}
-	if e.PeakPhase != "optimiser" || e.Peak != want["optimiser"] {
-		t.Errorf("peak %d in %q, want %d in the optimiser", e.Peak, e.PeakPhase, want["optimiser"])
-	}
-}
-
-// TestEstimateMemoryUniform works the same 1,000 × 10 table by hand with
-// uniform affinities over 15 neighbours: graph 8·1,000·15 = 120,000,
+//
+// Uniform affinities over 15 neighbours: graph 8·1,000·15 = 120,000,
 // NN-descent's work arrays 1,000·(15 + 16·8 + 48) = 191,000, affinities
 // (1.6·15·1,000 = 24,000 entries assumed) 8·24,000 + 8·1,001 = 200,008,
 // their renumbering 4·24,000 + 8·1,001 = 104,008; the rest as above.
-func TestEstimateMemoryUniform(t *testing.T) {
-	s := DefaultSettings()
-	s.Neighbours, s.Repulsion, s.UniformNeighbours = "descent", "tree", 15
-	e := EstimateMemory(1000, 10, s, 0)
+func TestEstimateMemoryHandWorked(t *testing.T) {
 	phase := func(sum float64) int64 { return int64(MemorySlack*sum) + MemoryBase }
-	want := map[string]int64{
-		"neighbours": phase(40_000 + 120_000 + 191_000),
-		"affinities": phase(120_000 + 200_008),
-		"optimiser":  phase(200_008 + 104_008 + 288_000),
-		"scores":     phase(40_000 + 16_000),
+	tests := []struct {
+		name    string
+		uniform int
+		k       int
+		entries int64
+		want    map[string]int64
+	}{
+		{"perplexity 30", 0, 90, 144_000, map[string]int64{
+			"neighbours": phase(40_000 + 720_000 + 858_000),
+			"affinities": phase(720_000 + 1_160_008),
+			"optimiser":  phase(1_160_008 + 584_008 + 288_000),
+			"scores":     phase(40_000 + 16_000),
+		}},
+		{"uniform over 15", 15, 15, 24_000, map[string]int64{
+			"neighbours": phase(40_000 + 120_000 + 191_000),
+			"affinities": phase(120_000 + 200_008),
+			"optimiser":  phase(200_008 + 104_008 + 288_000),
+			"scores":     phase(40_000 + 16_000),
+		}},
 	}
-	if e.Entries != 24_000 || e.Neighbours != 15 {
-		t.Fatalf("entries %d, k %d; want 24000 assumed, k 15", e.Entries, e.Neighbours)
-	}
-	for _, ph := range e.Phases {
-		if ph.Bytes != want[ph.Phase] {
-			t.Errorf("%s: %d bytes, want %d", ph.Phase, ph.Bytes, want[ph.Phase])
-		}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			s := DefaultSettings()
+			s.Neighbours, s.Repulsion, s.UniformNeighbours = "descent", "tree", tc.uniform
+			e := EstimateMemory(1000, 10, s, 0)
+			if e.Entries != tc.entries || e.Counted || e.Neighbours != tc.k {
+				t.Fatalf("entries %d (counted %v), k %d; want %d assumed, k %d", e.Entries, e.Counted, e.Neighbours, tc.entries, tc.k)
+			}
+			for _, ph := range e.Phases {
+				if ph.Bytes != tc.want[ph.Phase] {
+					t.Errorf("%s: %d bytes, want %d", ph.Phase, ph.Bytes, tc.want[ph.Phase])
+				}
+			}
+			if e.PeakPhase != "optimiser" || e.Peak != tc.want["optimiser"] {
+				t.Errorf("peak %d in %q, want %d in the optimiser", e.Peak, e.PeakPhase, tc.want["optimiser"])
+			}
+		})
 	}
 }
 
