@@ -85,6 +85,10 @@ const AssumedEntriesPerRow = 1.6
 //	                                  forward and reverse samples, offsets,
 //	                                  counts, k-th distances, row locks and
 //	                                  the row order
+//	recall check, after them          4·N·D + 4·N: a centred copy of the
+//	                                  features and their norms (the exact
+//	                                  search's screen); the larger of the
+//	                                  two counts
 //	affinities                        8·E + 8·(N+1) (int32 column, float32
 //	                                  value, int64 row offsets)
 //	affinities renumbered for the     4·E + 8·(N+1) more while the optimiser
@@ -129,7 +133,11 @@ func EstimateMemory(rows, features int, s Settings, entries int64) MemoryEstimat
 	search := []MemoryPart{feat, graph}
 	if m, err := s.neighbourMethod(rows); err == nil && m != knn.ByExact {
 		smp := (k + 1) / 2
-		search = append(search, MemoryPart{"NN-descent work arrays", n * (k + 16*smp + 48)})
+		work := MemoryPart{"NN-descent work arrays", n * (k + 16*smp + 48)}
+		if check := (MemoryPart{"recall check's copy of the features", 4*n*d + 4*n}); s.CheckRecall > 0 && check.Bytes > work.Bytes {
+			work = check
+		}
+		search = append(search, work)
 	}
 	dims := int64(s.Dims)
 	opt := MemoryPart{"optimiser", n * (48*dims + 16)}

@@ -31,33 +31,46 @@ import (
 // NN-descent's work arrays 1,000·(15 + 16·8 + 48) = 191,000, affinities
 // (1.6·15·1,000 = 24,000 entries assumed) 8·24,000 + 8·1,001 = 200,008,
 // their renumbering 4·24,000 + 8·1,001 = 104,008; the rest as above.
+//
+// The same with 100 features: the recall check's centred copy of them and
+// their norms, 4·1,000·100 + 4·1,000 = 404,000, outweighs the NN-descent
+// arrays in the neighbour phase, and the features read back (400,000)
+// outweigh P's renumbering in the optimiser's.
 func TestEstimateMemoryHandWorked(t *testing.T) {
 	phase := func(sum float64) int64 { return int64(MemorySlack*sum) + MemoryBase }
 	tests := []struct {
-		name    string
-		uniform int
-		k       int
-		entries int64
-		want    map[string]int64
+		name     string
+		features int
+		uniform  int
+		k        int
+		entries  int64
+		peak     string
+		want     map[string]int64
 	}{
-		{"perplexity 30", 0, 90, 144_000, map[string]int64{
+		{"perplexity 30", 10, 0, 90, 144_000, "optimiser", map[string]int64{
 			"neighbours": phase(40_000 + 720_000 + 858_000),
 			"affinities": phase(720_000 + 1_160_008),
 			"optimiser":  phase(1_160_008 + 584_008 + 288_000),
 			"scores":     phase(40_000 + 16_000),
 		}},
-		{"uniform over 15", 15, 15, 24_000, map[string]int64{
+		{"uniform over 15", 10, 15, 15, 24_000, "optimiser", map[string]int64{
 			"neighbours": phase(40_000 + 120_000 + 191_000),
 			"affinities": phase(120_000 + 200_008),
 			"optimiser":  phase(200_008 + 104_008 + 288_000),
 			"scores":     phase(40_000 + 16_000),
+		}},
+		{"uniform over 15, 100 features", 100, 15, 15, 24_000, "neighbours", map[string]int64{
+			"neighbours": phase(400_000 + 120_000 + 404_000),
+			"affinities": phase(120_000 + 200_008),
+			"optimiser":  phase(200_008 + 400_000 + 288_000),
+			"scores":     phase(400_000 + 16_000),
 		}},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
 			s := DefaultSettings()
 			s.Neighbours, s.Repulsion, s.UniformNeighbours = "descent", "tree", tc.uniform
-			e := EstimateMemory(1000, 10, s, 0)
+			e := EstimateMemory(1000, tc.features, s, 0)
 			if e.Entries != tc.entries || e.Counted || e.Neighbours != tc.k {
 				t.Fatalf("entries %d (counted %v), k %d; want %d assumed, k %d", e.Entries, e.Counted, e.Neighbours, tc.entries, tc.k)
 			}
@@ -66,8 +79,8 @@ func TestEstimateMemoryHandWorked(t *testing.T) {
 					t.Errorf("%s: %d bytes, want %d", ph.Phase, ph.Bytes, tc.want[ph.Phase])
 				}
 			}
-			if e.PeakPhase != "optimiser" || e.Peak != tc.want["optimiser"] {
-				t.Errorf("peak %d in %q, want %d in the optimiser", e.Peak, e.PeakPhase, tc.want["optimiser"])
+			if e.PeakPhase != tc.peak || e.Peak != tc.want[tc.peak] {
+				t.Errorf("peak %d in %q, want %d in %q", e.Peak, e.PeakPhase, tc.want[tc.peak], tc.peak)
 			}
 		})
 	}

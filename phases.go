@@ -240,6 +240,11 @@ func (j *job) neighbours(k int) (*Graph, error) {
 	j.rep.Neighbours.Method, j.rep.Neighbours.K = method.String(), k
 	j.rep.Neighbours.Seconds = time.Since(t0).Seconds()
 	if method != knn.ByExact && j.s.CheckRecall > 0 {
+		// The search's work arrays are garbage now; without handing them
+		// back, the check's copy of the features (4·N·D bytes) stacked on
+		// them: 10,000,000 demo rows with uniform affinities over 15
+		// neighbours peaked at 8.25 GiB here, against 5.4 GiB in the search.
+		j.freeMemory()
 		t1 := time.Now()
 		var rec float64
 		var rows int
