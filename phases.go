@@ -108,7 +108,8 @@ func (j *job) readInput(resumed bool) error {
 }
 
 // checkTable refuses, before any work is done on it, a table too small for
-// the perplexity or, under the cosine metric, with an all-zero row.
+// the affinities (the perplexity's or the uniform neighbours') or, under the
+// cosine metric, with an all-zero row.
 func checkTable(s Settings, t *ingest.Table) error {
 	if err := s.checkRows(t.N); err != nil {
 		return fmt.Errorf("%s: %w", s.Input, err)

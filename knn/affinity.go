@@ -225,8 +225,8 @@ func AffinityConsume(g *core.Graph, perplexity float64, threads int) (*core.CSR,
 // symmetrised as there, p_ij = (p_{j|i} + p_{i|j}) / 2N: every entry is
 // 1/(2NK) (one-way edge) or 1/(NK) (mutual neighbours). Böhm, Berens & Kobak
 // ("Attraction-repulsion spectrum in neighbor embeddings", JMLR 23, 2022)
-// show that t-SNE maps made with such affinities over a small K (they use
-// K = 15) are close to those calibrated by perplexity; with K = 15 instead of
+// show that t-SNE maps made with such affinities over a small K (K = 15
+// there, from memory) are close to those calibrated by perplexity; with K = 15 instead of
 // ⌊3·30⌋ = 90 the graph and P hold about a sixth of the entries. Distances
 // are checked as in Affinity but not used; duplicate rows are neighbours
 // like any other. The preconditions, the result's layout and its

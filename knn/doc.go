@@ -65,8 +65,8 @@
 // neighbours, symmetrised the same way, so every entry is 1/(2Nk) or, for
 // mutual neighbours, 1/(Nk). Böhm, Berens & Kobak ("Attraction-repulsion
 // spectrum in neighbor embeddings", JMLR 23, 2022) find such affinities
-// over a small k (15) give t-SNE maps close to perplexity 30's, on a sixth
-// of the neighbours; CheckNeighbours refuses a k above N − 1.
+// over a small k (15; from memory) give t-SNE maps close to perplexity
+// 30's, on a sixth of the neighbours; CheckNeighbours refuses a k above N − 1.
 //
 // # Threads and memory
 //
