@@ -57,3 +57,33 @@ func ExampleCalibrate() {
 	// Output:
 	// β = 0.6931, H = 0.9557, p = [0.5714 0.2857 0.1429]
 }
+
+// The same six points with uniform affinities over each row's nearest
+// neighbour (k = 1): rows 0 and 1 are each other's nearest, so
+// p_01 = (1 + 1)/(2·6) = 1/6; row 2's nearest is row 1, whose own nearest is
+// row 0, so p_12 = (1 + 0)/(2·6) = 1/12. Likewise rows 3, 4 and 5.
+func ExampleUniformAffinity() {
+	x := core.Matrix{N: 6, D: 1, Data: []float32{0, 1, 3, 10, 11.5, 14}}
+	g, err := knn.Exact(x, 1, knn.ExactOptions{})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	P, err := knn.UniformAffinity(g, 1)
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	fmt.Printf("P has %d entries\n", len(P.Vals))
+	for _, i := range []int{1, 4} {
+		fmt.Printf("P row %d:", i)
+		for pos := P.Offsets[i]; pos < P.Offsets[i+1]; pos++ {
+			fmt.Printf(" (%d) %.4f", P.Cols[pos], P.Vals[pos])
+		}
+		fmt.Println()
+	}
+	// Output:
+	// P has 8 entries
+	// P row 1: (0) 0.1667 (2) 0.0833
+	// P row 4: (3) 0.1667 (5) 0.0833
+}
