@@ -200,18 +200,7 @@ func TestWriteMNISTSplit(t *testing.T) {
 	if out == "" {
 		t.Skip("a preparation: set NIGHTJAR_MNIST_SPLIT to a directory")
 	}
-	dir, err := bench.MNISTDir()
-	if err != nil {
-		t.Fatal(err)
-	}
-	train, err := bench.MNIST(dir, 60000)
-	if err != nil {
-		t.Fatal(err)
-	}
-	test, err := bench.MNISTTest(dir, 10000)
-	if err != nil {
-		t.Fatal(err)
-	}
+	train, test := mnistSplit(t, 60000, 10000)
 	if err := os.MkdirAll(out, 0o755); err != nil {
 		t.Fatal(err)
 	}

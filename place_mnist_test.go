@@ -42,18 +42,7 @@ func TestPlaceMNIST(t *testing.T) {
 	if testing.Short() {
 		t.Skip("a minute or two: runs without -short")
 	}
-	mdir, err := bench.MNISTDir()
-	if err != nil {
-		t.Fatal(err)
-	}
-	train, err := bench.MNIST(mdir, 10000)
-	if err != nil {
-		t.Fatal(err)
-	}
-	test, err := bench.MNISTTest(mdir, 2000)
-	if err != nil {
-		t.Fatal(err)
-	}
+	train, test := mnistSplit(t, 10000, 2000)
 	dir := t.TempDir()
 	s := DefaultSettings()
 	s.ID, s.Label = "id", "digit"
@@ -83,6 +72,26 @@ func TestPlaceMNIST(t *testing.T) {
 	}
 	checkOwnKL(t, ref, test, res.Placed)
 	checkLeaveOneOut(t, ref)
+}
+
+// mnistSplit returns the first train digits of MNIST's training set and
+// the first test digits of its test set (LeCun, Cortes & Burges; the files
+// the GoMNIST module ships).
+func mnistSplit(t testing.TB, train, test int) (*ingest.Table, *ingest.Table) {
+	t.Helper()
+	dir, err := bench.MNISTDir()
+	if err != nil {
+		t.Fatal(err)
+	}
+	tr, err := bench.MNIST(dir, train)
+	if err != nil {
+		t.Fatal(err)
+	}
+	te, err := bench.MNISTTest(dir, test)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return tr, te
 }
 
 // checkOwnKL compares each placed digit's exact KL term at its median

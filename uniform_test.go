@@ -7,7 +7,6 @@ import (
 	"path/filepath"
 	"testing"
 
-	"nightjar/bench"
 	"nightjar/checkpoint"
 	"nightjar/ingest"
 )
@@ -27,18 +26,7 @@ func TestUniformMNIST(t *testing.T) {
 	if testing.Short() {
 		t.Skip("half a minute: runs without -short")
 	}
-	mdir, err := bench.MNISTDir()
-	if err != nil {
-		t.Fatal(err)
-	}
-	train, err := bench.MNIST(mdir, 3000)
-	if err != nil {
-		t.Fatal(err)
-	}
-	test, err := bench.MNISTTest(mdir, 500)
-	if err != nil {
-		t.Fatal(err)
-	}
+	train, test := mnistSplit(t, 3000, 500)
 	dir := t.TempDir()
 	in := filepath.Join(dir, "train.parquet")
 	writePlaceTable(t, in, train)
