@@ -134,7 +134,8 @@ func EstimateMemory(rows, features int, s Settings, entries int64) MemoryEstimat
 	if m, err := s.neighbourMethod(rows); err == nil && m != knn.ByExact {
 		smp := (k + 1) / 2
 		work := MemoryPart{"NN-descent work arrays", n * (k + 16*smp + 48)}
-		if check := (MemoryPart{"recall check's copy of the features", 4*n*d + 4*n}); s.CheckRecall > 0 && check.Bytes > work.Bytes {
+		check := MemoryPart{"recall check's copy of the features", 4*n*d + 4*n}
+		if s.CheckRecall > 0 && check.Bytes > work.Bytes {
 			work = check
 		}
 		search = append(search, work)

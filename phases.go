@@ -181,9 +181,11 @@ func (j *job) affinities() (CSR, error) {
 		if g, err = j.neighbours(k); err != nil {
 			return CSR{}, err
 		}
-		// The neighbour search's work arrays (about 1 GB at 1,000,000 rows)
-		// are garbage now: without handing them back, P's arrays stack up
-		// on pages the process still holds (3.28 GB peak at 1,000,000 rows).
+		// The neighbour search's work arrays (about 1 GB at 1,000,000 rows;
+		// handed back once already before the recall check, see neighbours)
+		// and the check's copy of the features are garbage now: without
+		// handing them back, P's arrays stack up on pages the process still
+		// holds (3.28 GB peak at 1,000,000 rows).
 		j.freeMemory()
 	}
 	// The features are not needed again until the optimiser's start: they
@@ -208,7 +210,7 @@ func (j *job) affinities() (CSR, error) {
 		return CSR{}, err
 	}
 	j.rep.PhaseMemory["affinities"] = peakMemory()
-	j.obs.Note(fmt.Sprintf("affinities: %s, %d entries, %.1fs", j.s.affinityNote(), len(P.Vals), j.rep.Affinities.Seconds))
+	j.obs.Note(fmt.Sprintf("affinities: %s, %d entries, %.1fs", j.s.AffinityNote(), len(P.Vals), j.rep.Affinities.Seconds))
 	return *P, nil
 }
 

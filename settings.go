@@ -178,8 +178,10 @@ func (s Settings) calibration() func(p []float64, d2 []float32) {
 	return func(p []float64, d2 []float32) { knn.Calibrate(p, d2, perp) }
 }
 
-// affinityNote describes the affinities for the log.
-func (s Settings) affinityNote() string {
+// AffinityNote names the affinities in a few words, as the log and the
+// bench's messages give them: "perplexity 30" or "uniform over 15
+// neighbours".
+func (s Settings) AffinityNote() string {
 	if s.UniformNeighbours > 0 {
 		return fmt.Sprintf("uniform over %d neighbours", s.UniformNeighbours)
 	}

@@ -42,12 +42,11 @@ func (j *job) subsampleStart(P CSR) ([]float64, error) {
 	for _, i := range rows {
 		sub.Data = append(sub.Data, x.Row(i)...)
 	}
-	// The subsample's own perplexity (or uniform neighbours), lowered if
-	// it has too few rows.
+	// The subsample's own perplexity, lowered if it has too few rows
+	// (uniform affinities take the graph's k, itself at most m−1).
 	own := j.s
 	own.Perplexity = min(j.s.Perplexity, float64(m-1)/3)
 	k := own.neighbourCount(m)
-	own.UniformNeighbours = min(own.UniformNeighbours, k)
 	metric, _ := knn.ParseMetric(j.s.Metric)
 	method := knn.ByDescent
 	if m <= knn.ExactLimit/4 {

@@ -140,14 +140,15 @@ func WriteRunsCSV(path string, meta bench.Meta, keys []string, rs []bench.Result
 // depend on: the table and its columns, the rows, the perplexity (or the
 // uniform neighbours), the metric and the neighbour search (resolved for
 // rows), and for an approximate search the seed and the recall goal. Runs
-// with equal keys share P (bit for bit, but for the hnsw search, whose start does not
-// repeat), so their KL divergences measure the fit to the same target.
+// with equal keys share P (bit for bit, but for the hnsw search, whose
+// start does not repeat), so their KL divergences measure the fit to the
+// same target.
 func AffinityKey(s Settings, rows int) string {
 	method := s.Neighbours
 	if m, err := s.neighbourMethod(rows); err == nil {
 		method = m.String()
 	}
-	key := fmt.Sprintf("%s|%q|%v|%d|%d|%s|%s|%s", s.Input, s.Features, s.SkipInvalid, s.Reduce, rows, s.affinityNote(), s.Metric, method)
+	key := fmt.Sprintf("%s|%q|%v|%d|%d|%s|%s|%s", s.Input, s.Features, s.SkipInvalid, s.Reduce, rows, s.AffinityNote(), s.Metric, method)
 	if method != "exact" {
 		key += fmt.Sprintf("|%d|%g", s.Seed, s.RecallGoal)
 	}

@@ -208,14 +208,11 @@ func Affinity(g *core.Graph, perplexity float64, threads int) (*core.CSR, error)
 // The result is the same as Affinity's, bit for bit.
 func AffinityConsume(g *core.Graph, perplexity float64, threads int) (*core.CSR, error) {
 	cal, err := perplexityRows(g, perplexity)
-	var p *core.CSR
-	if err == nil {
-		p, err = affinity(g, cal, threads, true)
+	if err != nil {
+		consumed(g)
+		return nil, err
 	}
-	if g != nil {
-		g.Index, g.Dist2 = nil, nil
-	}
-	return p, err
+	return affinityConsume(g, cal, threads)
 }
 
 // UniformAffinity is Affinity with the uniform conditional probabilities
@@ -238,11 +235,22 @@ func UniformAffinity(g *core.Graph, threads int) (*core.CSR, error) {
 // UniformAffinityConsume is UniformAffinity for a graph that is no longer
 // needed, as AffinityConsume is for Affinity.
 func UniformAffinityConsume(g *core.Graph, threads int) (*core.CSR, error) {
-	p, err := affinity(g, UniformRow, threads, true)
+	return affinityConsume(g, UniformRow, threads)
+}
+
+// affinityConsume is affinity on g's own storage, leaving g empty.
+func affinityConsume(g *core.Graph, cal rowCalibration, threads int) (*core.CSR, error) {
+	p, err := affinity(g, cal, threads, true)
+	consumed(g)
+	return p, err
+}
+
+// consumed leaves g (if any) without its lists, as the Consume functions
+// promise on success and on error.
+func consumed(g *core.Graph) {
 	if g != nil {
 		g.Index, g.Dist2 = nil, nil
 	}
-	return p, err
 }
 
 // A rowCalibration writes the conditional probabilities p_{j|i} of one row
@@ -268,8 +276,9 @@ func perplexityRows(g *core.Graph, perplexity float64) (rowCalibration, error) {
 // (the distances d2 are not used): UniformAffinity's p_{j|i}, for a row
 // outside the graph such as a new row placed into a finished map.
 func UniformRow(p []float64, d2 []float32) {
+	w := 1 / float64(len(p))
 	for j := range p {
-		p[j] = 1 / float64(len(p))
+		p[j] = w
 	}
 }
 

@@ -108,18 +108,14 @@ func ladderPercents(spec string) ([]float64, error) {
 }
 
 // ladderSizes turns the --ladder percentages into row counts, smallest
-// first, each large enough for the perplexity.
+// first, each large enough for the affinities (Settings.LeastRows).
 func ladderSizes(ps []float64, rows int, s nightjar.Settings) ([]int, error) {
 	least := max(s.LeastRows()+1, 100)
-	need := fmt.Sprintf("perplexity %g", s.Perplexity)
-	if s.UniformNeighbours > 0 {
-		need = fmt.Sprintf("%d uniform neighbours", s.UniformNeighbours)
-	}
 	var sizes []int
 	for _, p := range ps {
 		n := int(math.Round(p / 100 * float64(rows)))
 		if n < least {
-			return nil, usagef("bench: --ladder %g%% of %d rows is %d rows; %s needs at least %d (use %.2g%% or more)", p, rows, n, need, least, 100*float64(least)/float64(rows))
+			return nil, usagef("bench: --ladder %g%% of %d rows is %d rows; %s needs at least %d (use %.2g%% or more)", p, rows, n, s.AffinityNote(), least, 100*float64(least)/float64(rows))
 		}
 		if slices.Contains(sizes, n) {
 			return nil, usagef("bench: --ladder has two sizes of %d rows", n)
