@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"strings"
 	"testing"
 
@@ -404,6 +405,34 @@ func TestLagrangeFive(t *testing.T) {
 				if want := math.Pow(u, float64(j)); math.Abs(sum-want) > 1e-12*math.Max(1, want) {
 					t.Fatalf("p = %d, u = %v: Σ w_k k^%d = %v, want %v", p, u, j, sum, want)
 				}
+			}
+		}
+	}
+}
+
+// TestBounds compares the grid's parallel bounds with slices.Min and
+// slices.Max over each coordinate, for thread counts that split the points
+// into different blocks, and with a signed zero and an infinity among them.
+func TestBounds(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 11))
+	for _, n := range []int{1, 5, rowBlock*16 + 3, 3 * rowBlock * 16} {
+		y := make([]float64, 2*n)
+		for k := range y {
+			y[k] = rng.NormFloat64() * 100
+		}
+		if n > 3 {
+			y[4], y[5] = math.Copysign(0, -1), math.Inf(1)
+		}
+		xs, ys := make([]float64, n), make([]float64, n)
+		for i := range n {
+			xs[i], ys[i] = y[2*i], y[2*i+1]
+		}
+		want := [4]float64{slices.Min(xs), slices.Max(xs), slices.Min(ys), slices.Max(ys)}
+		for _, threads := range []int{1, 2, 3} {
+			var got [4]float64
+			got[0], got[1], got[2], got[3] = bounds(y, n, threads)
+			if got != want {
+				t.Errorf("n = %d, %d threads: bounds %v, want %v", n, threads, got, want)
 			}
 		}
 	}

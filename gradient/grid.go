@@ -211,13 +211,7 @@ func (g *fftGrid) stencil(s float64) (int, float64) {
 
 // setup fixes the grid geometry for y and sizes the buffers.
 func (g *fftGrid) setup(y []float64) {
-	n := g.n
-	xmin, xmax := math.Inf(1), math.Inf(-1)
-	ymin, ymax := math.Inf(1), math.Inf(-1)
-	for i := 0; i < n; i++ {
-		xmin, xmax = math.Min(xmin, y[2*i]), math.Max(xmax, y[2*i])
-		ymin, ymax = math.Min(ymin, y[2*i+1]), math.Max(ymax, y[2*i+1])
-	}
+	xmin, xmax, ymin, ymax := bounds(y, g.n, g.threads)
 	L := math.Max(xmax-xmin, ymax-ymin)
 	if L < 1e-3 {
 		L = 1e-3
@@ -239,6 +233,30 @@ func (g *fftGrid) setup(y []float64) {
 	}
 	g.lo = [2]float64{centre[0] - float64(m-1)*delta/2, centre[1] - float64(m-1)*delta/2}
 	g.resize(m, delta)
+}
+
+// bounds returns the smallest and largest of each coordinate of the first n
+// points of the 2-D map y. The blocks run in parallel (at 10^7 points the
+// loop alone took a tenth of a second a step on one core); minima and
+// maxima do not depend on the order they are combined in, so the result
+// is the same for any thread count.
+func bounds(y []float64, n, threads int) (xmin, xmax, ymin, ymax float64) {
+	parts := par.Map(n, rowBlock*16, threads, func() func(lo, hi int) [4]float64 {
+		return func(lo, hi int) [4]float64 {
+			b := [4]float64{math.Inf(1), math.Inf(-1), math.Inf(1), math.Inf(-1)}
+			for i := lo; i < hi; i++ {
+				b[0], b[1] = math.Min(b[0], y[2*i]), math.Max(b[1], y[2*i])
+				b[2], b[3] = math.Min(b[2], y[2*i+1]), math.Max(b[3], y[2*i+1])
+			}
+			return b
+		}
+	})
+	xmin, xmax, ymin, ymax = math.Inf(1), math.Inf(-1), math.Inf(1), math.Inf(-1)
+	for _, b := range parts {
+		xmin, xmax = math.Min(xmin, b[0]), math.Max(xmax, b[1])
+		ymin, ymax = math.Min(ymin, b[2]), math.Max(ymax, b[3])
+	}
+	return xmin, xmax, ymin, ymax
 }
 
 // resize sets M and δ, marks the kernel spectra stale if either changed and
