@@ -95,6 +95,14 @@ func AcquireLock(dir string) (*Lock, error) {
 		if err == nil || !errors.Is(err, syscall.EWOULDBLOCK) || try == lockTries {
 			break
 		}
+		// A live writer's record means the lock is not a reader's
+		// instant probe: refuse now rather than wait for the writer to
+		// end (a short run could end within the retries, and the caller
+		// would then meet a finished run instead of its holder).
+		if h, ok := ReadHolder(dir); ok && alive(h, time.Now()) {
+			f.Close()
+			return nil, &HeldError{Dir: dir, Holder: h, Known: true}
+		}
 		time.Sleep(lockWait)
 	}
 	if err != nil {

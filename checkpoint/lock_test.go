@@ -37,6 +37,32 @@ func TestLockOneWriter(t *testing.T) {
 	l2.Release()
 }
 
+// TestLockRefusesAtOnce: a writer meeting a live holder is refused at once,
+// not after the holder ends (a short run could end within the retries meant
+// for a reader's probe, and the second writer would then take the lock).
+func TestLockRefusesAtOnce(t *testing.T) {
+	dir := t.TempDir()
+	l, err := AcquireLock(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	released := make(chan struct{})
+	go func() {
+		time.Sleep(lockTries * lockWait / 2)
+		l.Release()
+		close(released)
+	}()
+	l2, err := AcquireLock(dir)
+	var he *HeldError
+	if !errors.As(err, &he) || !he.Known || he.Holder.PID != os.Getpid() {
+		t.Errorf("AcquireLock while held = %v, want a HeldError naming this process", err)
+	}
+	if l2 != nil {
+		l2.Release()
+	}
+	<-released
+}
+
 // TestLockRecords: a record left by a dead process on this host is taken
 // over; a fresh record of another host counts as alive (flock may not reach
 // across nodes), a stale one does not.
