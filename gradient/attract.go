@@ -1,5 +1,15 @@
 package gradient
 
+// attractAhead is how many entries ahead of the one being summed the SSE2
+// kernel prefetches a position (the pure-Go loop does not prefetch): far
+// enough for a read from memory to arrive in time, near enough to stay in
+// the cache until it is used. A large map's positions are scattered over
+// more memory than the caches hold, and the processor cannot guess an
+// address that is itself read from memory. 32 measured best of 8 to 96 on
+// the 10^7-row demo's P (BenchmarkSavedAttraction); 0 turns prefetching off
+// for that comparison.
+var attractAhead = 32
+
 // attractRowGo returns the attractive sums Σ_j p_ij w_ij (y_i − y_j) of one
 // row of a 2-D map, without the factor: cs and vs are the row's columns
 // and values, (yx, yy) its position, invA = 1/α, and w_ij = 1/(1 +

@@ -49,6 +49,47 @@ func TestAttractRowSameBits(t *testing.T) {
 	}
 }
 
+// TestAttractRowPrefetchSameBits: prefetching changes no bit. Rows are cut
+// from one long column array, as the attractive pass cuts them from P, so
+// the kernel may read columns past a row up to the array's end; each row is
+// summed with prefetching off, at the default distance, and at distances
+// longer than the rest of the array (so that no pair, or only some, may
+// prefetch), and compared with attractRowGo.
+func TestAttractRowPrefetchSameBits(t *testing.T) {
+	defer func(a int) { attractAhead = a }(attractAhead)
+	rng := rand.New(rand.NewPCG(10, 11))
+	const n = 300
+	y := make([]float64, 2*n)
+	for i := range y {
+		y[i] = rng.NormFloat64() * 30
+	}
+	var cols []int32
+	var vals []float32
+	var off []int
+	for length := range 70 {
+		off = append(off, len(cols))
+		perm := rng.Perm(n)[:length]
+		slices.Sort(perm)
+		for _, j := range perm {
+			cols, vals = append(cols, int32(j)), append(vals, float32(rng.Float64()*1e-4))
+		}
+	}
+	off = append(off, len(cols))
+	cols, vals = slices.Clip(cols), slices.Clip(vals)
+	for _, ahead := range []int{0, 1, 2, 7, 32, 100, len(cols) + 5} {
+		attractAhead = ahead
+		for r := 0; r+1 < len(off); r++ {
+			cs, vs := cols[off[r]:off[r+1]], vals[off[r]:off[r+1]]
+			i := rng.IntN(n)
+			fx, fy := attractRow(y, cs, vs, y[2*i], y[2*i+1], 1)
+			gx, gy := attractRowGo(y, cs, vs, y[2*i], y[2*i+1], 1)
+			if math.Float64bits(fx) != math.Float64bits(gx) || math.Float64bits(fy) != math.Float64bits(gy) {
+				t.Fatalf("ahead %d, row %d (%d entries, %d to the end): kernel (%v, %v), pure Go (%v, %v)", ahead, r, len(cs), cap(cs), fx, fy, gx, gy)
+			}
+		}
+	}
+}
+
 // BenchmarkAttractRow: one row of 131 entries (the mean of the
 // 1,000,000-row demo's P) by the kernel and by the pure-Go loop.
 func BenchmarkAttractRow(b *testing.B) {
