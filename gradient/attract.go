@@ -5,9 +5,10 @@ package gradient
 // enough for a read from memory to arrive in time, near enough to stay in
 // the cache until it is used. A large map's positions are scattered over
 // more memory than the caches hold, and the processor cannot guess an
-// address that is itself read from memory. 32 measured best of 8 to 96 on
-// the 10^7-row demo's P (BenchmarkSavedAttraction); 0 turns prefetching off
-// for that comparison.
+// address that is itself read from memory. On the 10^7-row demo's P
+// (BenchmarkSavedAttraction, bench/RESULTS.md) distances of 24 to 64 took
+// within a few per cent of each other and 17 % off the pass; 0 turns
+// prefetching off for that comparison.
 var attractAhead = 32
 
 // attractRowGo returns the attractive sums Σ_j p_ij w_ij (y_i − y_j) of one
