@@ -81,22 +81,28 @@ func BenchmarkGradientTree(b *testing.B) {
 	}
 }
 
-// BenchmarkAttraction isolates the sparse attractive pass (same P as above).
+// BenchmarkAttraction isolates the sparse attractive pass (same P as above),
+// with the kernel's prefetching at its distance and off.
 func BenchmarkAttraction(b *testing.B) {
 	const n = 100000
 	p := benchP(b, n, 90)
 	y := benchY(n, 2)
+	def := attractAhead
+	defer func() { attractAhead = def }()
 	for _, threads := range []int{1, 2} {
-		b.Run(fmt.Sprintf("N=%d/threads=%d", n, threads), func(b *testing.B) {
-			params := DefaultParams(n)
-			params.Method, params.Threads = Tree, threads
-			e, _ := newEngine(p, params)
-			grad := make([]float64, n*2)
-			b.ResetTimer()
-			for range b.N {
-				e.attraction(y, 4, 0, grad)
-			}
-		})
+		for _, ahead := range []int{def, 0} {
+			b.Run(fmt.Sprintf("N=%d/threads=%d/ahead=%d", n, threads, ahead), func(b *testing.B) {
+				attractAhead = ahead
+				params := DefaultParams(n)
+				params.Method, params.Threads = Tree, threads
+				e, _ := newEngine(p, params)
+				grad := make([]float64, n*2)
+				b.ResetTimer()
+				for range b.N {
+					e.attraction(y, 4, 0, grad)
+				}
+			})
+		}
 	}
 }
 
