@@ -25,13 +25,13 @@ func attractRow(y []float64, cs []int32, vs []float32, yx, yy, invA float64) (fx
 		// (columns in [0, N), ascending in a row), so the last column is
 		// the largest; every column up to cap(cs) indexes y as well.
 		_ = y[2*int(cs[len(cs)-1])+1]
-		fetched := 0
-		if ahead := attractAhead; ahead > 0 {
+		ahead, fetched := attractAhead, 0
+		if ahead > 0 {
 			// Pair p reads columns 2p+ahead and 2p+ahead+1, which must
 			// be below cap(cs).
 			fetched = min(pairs, max(0, (cap(cs)-ahead)/2))
 		}
-		fx0, fy0, fx1, fy1 = attractPairsSSE(&y[0], &cs[0], &vs[0], pairs, fetched, 4*attractAhead, yx, yy, invA)
+		fx0, fy0, fx1, fy1 = attractPairsSSE(&y[0], &cs[0], &vs[0], pairs, fetched, 4*ahead, yx, yy, invA)
 	}
 	return attractTail(y, cs, vs, yx, yy, invA, fx0, fy0, fx1, fy1)
 }
