@@ -11,6 +11,21 @@ package gradient
 // prefetching off for that comparison.
 var attractAhead = 32
 
+// attractStream is how many entries ahead the SSE2 kernel, while it
+// prefetches positions (attractAhead > 0), also prefetches P's columns and
+// values, as non-temporal data (PREFETCHNTA); 0 leaves them to the
+// processor. Why it helps, as far as we can tell: P is read once per pass,
+// in order, and at 10^7 rows it is 10.6 GB; read the ordinary way it
+// passes through the shared cache and pushes out the map's positions
+// (160 MB at 10^7 rows), which are read again and again in no order the
+// processor can guess, while data fetched as non-temporal is kept out of
+// most of the cache. On the 10^7-row demo's P
+// (BenchmarkSavedAttraction, bench/RESULTS.md) 192 to 320 entries ahead
+// took 15-18 % off the pass (on top of attractAhead's), 128 and 512 less
+// or nothing; on the 10^6-row P, whose positions fit in the cache anyway,
+// 256 changed nothing.
+var attractStream = 256
+
 // attractRowGo returns the attractive sums Σ_j p_ij w_ij (y_i − y_j) of one
 // row of a 2-D map, without the factor: cs and vs are the row's columns
 // and values, (yx, yy) its position, invA = 1/α, and w_ij = 1/(1 +

@@ -35,7 +35,17 @@
 	ADDQ $8, DI \
 	ADDQ $8, R8
 
-// func attractPairsSSE(y *float64, cols *int32, vals *float32, pairs, fetched, ahead int, yx, yy, invA float64) (fx0, fy0, fx1, fy1 float64)
+// FETCH asks the processor to fetch the positions of the pair of entries
+// R11 bytes further on than (DI) (PREFETCHT0).
+#define FETCH \
+	MOVLQSX (DI)(R11*1), R9 \
+	MOVLQSX 4(DI)(R11*1), R10 \
+	SHLQ  $4, R9 \
+	SHLQ  $4, R10 \
+	PREFETCHT0 (SI)(R9*1) \
+	PREFETCHT0 (SI)(R10*1)
+
+// func attractPairsSSE(y *float64, cols *int32, vals *float32, pairs, fetched, ahead, stream int, yx, yy, invA float64) (fx0, fy0, fx1, fy1 float64)
 //
 // The attractive sums of one row over its first 2·pairs entries, two at a
 // time in the two lanes of SSE2 registers: lane 0 sums the even entries and
@@ -44,20 +54,23 @@
 // f += s·dx), with no fused multiply-add, so the sums have its bits.
 // For the first fetched pairs it also asks the processor to fetch the
 // positions of the two entries ahead bytes further on in cols
-// (PREFETCHT0): a prefetch changes no result and never faults, but the
-// columns it reads must exist.
-TEXT ·attractPairsSSE(SB), NOSPLIT, $0-104
+// (PREFETCHT0), and, if stream is not 0, the columns and values stream
+// bytes further on as non-temporal data (PREFETCHNTA). A prefetch changes
+// no result and never faults, but the columns whose positions it fetches
+// must exist.
+TEXT ·attractPairsSSE(SB), NOSPLIT, $0-112
 	MOVQ  y+0(FP), SI
 	MOVQ  cols+8(FP), DI
 	MOVQ  vals+16(FP), R8
 	MOVQ  pairs+24(FP), CX
 	MOVQ  fetched+32(FP), DX
 	MOVQ  ahead+40(FP), R11
-	MOVSD yx+48(FP), X0
+	MOVQ  stream+48(FP), R12
+	MOVSD yx+56(FP), X0
 	UNPCKLPD X0, X0
-	MOVSD yy+56(FP), X1
+	MOVSD yy+64(FP), X1
 	UNPCKLPD X1, X1
-	MOVSD invA+64(FP), X2
+	MOVSD invA+72(FP), X2
 	UNPCKLPD X2, X2
 	MOVQ  $0x3FF0000000000000, AX
 	MOVQ  AX, X3
@@ -67,14 +80,20 @@ TEXT ·attractPairsSSE(SB), NOSPLIT, $0-104
 	SUBQ  DX, CX
 	TESTQ DX, DX
 	JZ    plain
+	TESTQ R12, R12
+	JZ    fetching
+
+streaming:
+	FETCH
+	PREFETCHNTA (DI)(R12*1)
+	PREFETCHNTA (R8)(R12*1)
+	TERMS
+	DECQ   DX
+	JNZ    streaming
+	JMP    plain
 
 fetching:
-	MOVLQSX (DI)(R11*1), R9
-	MOVLQSX 4(DI)(R11*1), R10
-	SHLQ  $4, R9
-	SHLQ  $4, R10
-	PREFETCHT0 (SI)(R9*1)
-	PREFETCHT0 (SI)(R10*1)
+	FETCH
 	TERMS
 	DECQ   DX
 	JNZ    fetching
@@ -89,10 +108,10 @@ loop:
 	JNZ    loop
 
 done:
-	MOVSD X4, fx0+72(FP)
-	MOVSD X5, fy0+80(FP)
+	MOVSD X4, fx0+80(FP)
+	MOVSD X5, fy0+88(FP)
 	UNPCKHPD X4, X4
 	UNPCKHPD X5, X5
-	MOVSD X4, fx1+88(FP)
-	MOVSD X5, fy1+96(FP)
+	MOVSD X4, fx1+96(FP)
+	MOVSD X5, fy1+104(FP)
 	RET

@@ -54,9 +54,10 @@ func TestAttractRowSameBits(t *testing.T) {
 // the kernel may read columns past a row up to the array's end; each row is
 // summed with prefetching off, at the default distance, and at distances
 // longer than the rest of the array (so that no pair, or only some, may
-// prefetch), and compared with attractRowGo.
+// prefetch), with P's columns and values prefetched or not, near or past
+// the array's end, and compared with attractRowGo.
 func TestAttractRowPrefetchSameBits(t *testing.T) {
-	defer func(a int) { attractAhead = a }(attractAhead)
+	defer func(a, s int) { attractAhead, attractStream = a, s }(attractAhead, attractStream)
 	rng := rand.New(rand.NewPCG(10, 11))
 	const n = 300
 	y := make([]float64, 2*n)
@@ -76,15 +77,18 @@ func TestAttractRowPrefetchSameBits(t *testing.T) {
 	}
 	off = append(off, len(cols))
 	cols, vals = slices.Clip(cols), slices.Clip(vals)
-	for _, ahead := range []int{0, 1, 2, 7, 32, 100, len(cols) + 5} {
-		attractAhead = ahead
+	for _, c := range []struct{ ahead, stream int }{
+		{0, 0}, {1, 0}, {2, 0}, {7, 0}, {32, 0}, {100, 0}, {len(cols) + 5, 0},
+		{1, 1}, {32, 256}, {7, len(cols) + 5}, {len(cols) + 5, 256},
+	} {
+		attractAhead, attractStream = c.ahead, c.stream
 		for r := 0; r+1 < len(off); r++ {
 			cs, vs := cols[off[r]:off[r+1]], vals[off[r]:off[r+1]]
 			i := rng.IntN(n)
 			fx, fy := attractRow(y, cs, vs, y[2*i], y[2*i+1], 1)
 			gx, gy := attractRowGo(y, cs, vs, y[2*i], y[2*i+1], 1)
 			if math.Float64bits(fx) != math.Float64bits(gx) || math.Float64bits(fy) != math.Float64bits(gy) {
-				t.Fatalf("ahead %d, row %d (%d entries, %d to the end): kernel (%v, %v), pure Go (%v, %v)", ahead, r, len(cs), cap(cs), fx, fy, gx, gy)
+				t.Fatalf("ahead %d, stream %d, row %d (%d entries, %d to the end): kernel (%v, %v), pure Go (%v, %v)", c.ahead, c.stream, r, len(cs), cap(cs), fx, fy, gx, gy)
 			}
 		}
 	}
