@@ -82,17 +82,16 @@ func BenchmarkGradientTree(b *testing.B) {
 }
 
 // BenchmarkAttraction isolates the sparse attractive pass (same P as above),
-// with the kernel's prefetching at its distance and off.
+// with the kernel's prefetching as it is, of positions alone, and off.
 func BenchmarkAttraction(b *testing.B) {
 	const n = 100000
 	p := benchP(b, n, 90)
 	y := benchY(n, 2)
-	def := attractAhead
-	defer func() { attractAhead = def }()
+	defer func(a, s int) { attractAhead, attractStream = a, s }(attractAhead, attractStream)
 	for _, threads := range []int{1, 2} {
-		for _, ahead := range []int{def, 0} {
-			b.Run(fmt.Sprintf("N=%d/threads=%d/ahead=%d", n, threads, ahead), func(b *testing.B) {
-				attractAhead = ahead
+		for _, c := range [][2]int{{attractAhead, attractStream}, {attractAhead, 0}, {0, 0}} {
+			b.Run(fmt.Sprintf("N=%d/threads=%d/ahead=%d/stream=%d", n, threads, c[0], c[1]), func(b *testing.B) {
+				attractAhead, attractStream = c[0], c[1]
 				params := DefaultParams(n)
 				params.Method, params.Threads = Tree, threads
 				e, _ := newEngine(p, params)

@@ -3,7 +3,6 @@ package gradient
 import (
 	"os"
 	"slices"
-	"strconv"
 	"testing"
 	"time"
 
@@ -12,8 +11,9 @@ import (
 )
 
 // BenchmarkSavedAttraction times the attractive pass on the P and newest
-// state of a real run directory, with the kernel's prefetching off
-// (attractAhead = 0) and at several distances, one pass of each in turn so
+// state of a real run directory, with the kernel's prefetching off, of
+// positions alone (attractAhead), and of positions and P's columns and
+// values at several distances (attractStream), one pass of each in turn so
 // that a shared machine's drift falls on all alike. It reports each
 // setting's median seconds per pass and its ratio to no prefetching. Set
 // NIGHTJAR_BENCH_RUN to a run directory with a saved P (a finished or
@@ -40,13 +40,22 @@ func BenchmarkSavedAttraction(b *testing.B) {
 	}
 	b.Logf("%d rows, %d entries", o.n, len(o.eng.p.Cols))
 
-	defer func(a int) { attractAhead = a }(attractAhead)
-	aheads := []int{0, 16, 32, 64}
-	times := make([][]float64, len(aheads))
+	defer func(a, s int) { attractAhead, attractStream = a, s }(attractAhead, attractStream)
+	settings := []struct {
+		name          string
+		ahead, stream int
+	}{
+		{"off", 0, 0},
+		{"a32", 32, 0},
+		{"a32s128", 32, 128},
+		{"a32s256", 32, 256},
+		{"a32s384", 32, 384},
+	}
+	times := make([][]float64, len(settings))
 	b.ResetTimer()
 	for range b.N {
-		for a, ahead := range aheads {
-			attractAhead = ahead
+		for a, c := range settings {
+			attractAhead, attractStream = c.ahead, c.stream
 			t0 := time.Now()
 			o.eng.attraction(o.y, 1, 0, o.g)
 			times[a] = append(times[a], time.Since(t0).Seconds())
@@ -54,11 +63,11 @@ func BenchmarkSavedAttraction(b *testing.B) {
 	}
 	b.StopTimer()
 	base := median(times[0])
-	for a, ahead := range aheads {
+	for a, c := range settings {
 		m := median(times[a])
-		b.ReportMetric(m, "s/pass-ahead"+strconv.Itoa(ahead))
+		b.ReportMetric(m, "s/pass-"+c.name)
 		if a > 0 {
-			b.ReportMetric(m/base, "ratio-ahead"+strconv.Itoa(ahead))
+			b.ReportMetric(m/base, "ratio-"+c.name)
 		}
 	}
 }
