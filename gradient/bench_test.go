@@ -87,9 +87,10 @@ func BenchmarkAttraction(b *testing.B) {
 	const n = 100000
 	p := benchP(b, n, 90)
 	y := benchY(n, 2)
-	defer func(a, s int) { attractAhead, attractStream = a, s }(attractAhead, attractStream)
+	ahead, stream := attractAhead, attractStream
+	defer func() { attractAhead, attractStream = ahead, stream }()
 	for _, threads := range []int{1, 2} {
-		for _, c := range [][2]int{{attractAhead, attractStream}, {attractAhead, 0}, {0, 0}} {
+		for _, c := range [][2]int{{ahead, stream}, {ahead, 0}, {0, 0}} {
 			b.Run(fmt.Sprintf("N=%d/threads=%d/ahead=%d/stream=%d", n, threads, c[0], c[1]), func(b *testing.B) {
 				attractAhead, attractStream = c[0], c[1]
 				params := DefaultParams(n)
