@@ -21,9 +21,9 @@ var attractAhead = 32
 // processor can guess, while data fetched as non-temporal is kept out of
 // most of the cache. On the 10^7-row demo's P
 // (BenchmarkSavedAttraction, bench/RESULTS.md) 192 to 320 entries ahead
-// took 15-18 % off the pass (on top of attractAhead's), 128 and 512 less
-// or nothing; on the 10^6-row P, whose positions fit in the cache anyway,
-// 256 changed nothing.
+// took 14-18 % off the pass (on top of attractAhead's), 128 3-4 %, and
+// 512 made it 3 % slower; on the 10^6-row P, whose positions stay in the
+// cache anyway, 192 to 320 changed nothing and 128 cost 22 %.
 var attractStream = 256
 
 // attractRowGo returns the attractive sums Σ_j p_ij w_ij (y_i − y_j) of one
