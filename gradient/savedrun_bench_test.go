@@ -2,10 +2,10 @@ package gradient
 
 import (
 	"os"
-	"slices"
 	"testing"
 	"time"
 
+	"nightjar/bench"
 	"nightjar/checkpoint"
 	"nightjar/internal/core"
 )
@@ -62,9 +62,9 @@ func BenchmarkSavedAttraction(b *testing.B) {
 		}
 	}
 	b.StopTimer()
-	base := median(times[0])
+	base := bench.Median(times[0])
 	for a, c := range settings {
-		m := median(times[a])
+		m := bench.Median(times[a])
 		b.ReportMetric(m, "s/pass-"+c.name)
 		if a > 0 {
 			b.ReportMetric(m/base, "ratio-"+c.name)
@@ -103,10 +103,4 @@ func loadSavedRun(b *testing.B, dir string) (core.CSR, []float64) {
 		b.Fatal(err)
 	}
 	return p, y
-}
-
-func median(s []float64) float64 {
-	s = slices.Clone(s)
-	slices.Sort(s)
-	return s[len(s)/2]
 }
