@@ -3,6 +3,7 @@ package gradient
 import (
 	"fmt"
 	"math"
+	"slices"
 
 	"nightjar/internal/core"
 	"nightjar/internal/par"
@@ -57,9 +58,10 @@ type engine struct {
 	threads int
 	method  Method
 
-	rep    []float64 // unnormalised repulsive sums Σ_j w^(1+1/α)(y_i − y_j), N×dims
-	zBlock []float64 // per-block partial sums of Z
-	kBlock []float64 // per-block partial sums of Σ p ln w
+	rep    []float64   // unnormalised repulsive sums Σ_j w^(1+1/α)(y_i − y_j), N×dims
+	zBlock []float64   // per-block partial sums of Z
+	kBlock []float64   // per-block partial sums of Σ p ln w
+	dist   [][]float64 // each worker's squared distances of a row (sumPLogWUpper)
 	tree   *bhTree
 	grid   *fftGrid
 }
@@ -211,6 +213,52 @@ func (e *engine) sumPLogW(y, shift []float64) float64 {
 		e.kBlock[b] = s
 	})
 	return par.Sum(e.kBlock[:nb])
+}
+
+// sumPLogWUpper returns Σ_ij p_ij ln w_ij at y for a symmetric P
+// (symmetric), reading in each row only the entries right of the diagonal
+// and counting them twice: p_ij = p_ji, and w_ij = w_ji to the last bit,
+// since y_j − y_i is exactly −(y_i − y_j). It reads half of P and takes half
+// the logarithms of sumPLogW, whose value it gives up to rounding.
+func (e *engine) sumPLogWUpper(y []float64) float64 {
+	off, cols, vals := e.p.Offsets, e.p.Cols, e.p.Vals
+	d := e.dims
+	invA := 1 / e.alpha
+	nb := (e.n + rowBlock - 1) / rowBlock
+	e.kBlock = growFloats(e.kBlock, nb)
+	if len(e.dist) < e.threads {
+		e.dist = make([][]float64, e.threads)
+	}
+	par.Blocks(e.n, rowBlock, e.threads, func(w, b, lo, hi int) {
+		var s float64
+		for i := lo; i < hi; i++ {
+			a, z := off[i], off[i+1]
+			k0, _ := slices.BinarySearch(cols[a:z], int32(i))
+			a += int64(k0)
+			// The distances first, in a loop of their own: its reads of
+			// scattered positions do not wait on each other, where a
+			// logarithm between two of them keeps few in flight.
+			if int64(cap(e.dist[w])) < z-a {
+				e.dist[w] = make([]float64, 2*(z-a))
+			}
+			dist := e.dist[w][:z-a]
+			for k := range dist {
+				j := int(cols[a+int64(k)])
+				var d2 float64
+				for c := 0; c < d; c++ {
+					diff := y[i*d+c] - y[j*d+c]
+					d2 += diff * diff
+				}
+				dist[k] = d2
+			}
+			for k, d2 := range dist {
+				s += float64(vals[a+int64(k)]) * math.Log1p(d2*invA)
+			}
+		}
+		e.kBlock[b] = s
+	})
+	// ln w = −α ln(1 + d²/α), and each pair counts twice.
+	return -2 * e.alpha * par.Sum(e.kBlock[:nb])
 }
 
 // sumPLogP returns Σ p ln p over the non-zeros of P (0 ln 0 = 0) and Σ p.

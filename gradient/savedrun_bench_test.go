@@ -1,6 +1,7 @@
 package gradient
 
 import (
+	"math"
 	"os"
 	"testing"
 	"time"
@@ -103,4 +104,51 @@ func loadSavedRun(b *testing.B, dir string) (core.CSR, []float64) {
 		b.Fatal(err)
 	}
 	return p, y
+}
+
+// BenchmarkSavedKL times the optimiser's KL on the P and newest state of a
+// real run directory (NIGHTJAR_BENCH_RUN, as BenchmarkSavedAttraction),
+// after one step: the sum over every entry of P with the last step's
+// positions recovered pair by pair (whole), and the sum over the entries
+// right of the diagonal, counted twice, with the positions recovered once
+// (half, what KL does for a symmetric P); one of each in turn. It reports
+// each one's median seconds, their ratio, and the relative difference of
+// their values.
+func BenchmarkSavedKL(b *testing.B) {
+	dir := os.Getenv("NIGHTJAR_BENCH_RUN")
+	if dir == "" {
+		b.Skip("set NIGHTJAR_BENCH_RUN to a run directory with a saved P and state")
+	}
+	p, y := loadSavedRun(b, dir)
+	params := DefaultParams(p.N)
+	params.Threads = 2
+	o, err := NewConsume(p, y, params)
+	if err != nil {
+		b.Fatal(err)
+	}
+	if !o.sym {
+		b.Fatal("the saved P is not symmetric")
+	}
+	if err := o.Step(); err != nil {
+		b.Fatal(err)
+	}
+	var whole, half []float64
+	var vw, vh float64
+	b.ResetTimer()
+	for range b.N {
+		t0 := time.Now()
+		vw = o.eng.sumPLogW(o.y, o.update)
+		whole = append(whole, time.Since(t0).Seconds())
+		t0 = time.Now()
+		o.klValid = false
+		o.KL()
+		half = append(half, time.Since(t0).Seconds())
+	}
+	b.StopTimer()
+	vh = o.plogp - o.kl + o.psum*math.Log(o.lastZ)
+	mw, mh := bench.Median(whole), bench.Median(half)
+	b.ReportMetric(mw, "s-whole")
+	b.ReportMetric(mh, "s-half")
+	b.ReportMetric(mh/mw, "ratio")
+	b.ReportMetric(math.Abs(vh-vw)/math.Abs(vw), "rel-diff")
 }
