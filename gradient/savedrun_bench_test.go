@@ -28,17 +28,7 @@ import (
 // P (10.6 GB) after. Without the variable there is nothing to time and the
 // benchmark says so.
 func BenchmarkSavedAttraction(b *testing.B) {
-	dir := os.Getenv("NIGHTJAR_BENCH_RUN")
-	if dir == "" {
-		b.Skip("set NIGHTJAR_BENCH_RUN to a run directory with a saved P and state")
-	}
-	p, y := loadSavedRun(b, dir)
-	params := DefaultParams(p.N)
-	params.Threads = 2
-	o, err := NewConsume(p, y, params)
-	if err != nil {
-		b.Fatal(err)
-	}
+	o := savedOptimizer(b)
 	b.Logf("%d rows, %d entries", o.n, len(o.eng.p.Cols))
 
 	defer func(a, s int) { attractAhead, attractStream = a, s }(attractAhead, attractStream)
@@ -71,6 +61,24 @@ func BenchmarkSavedAttraction(b *testing.B) {
 			b.ReportMetric(m/base, "ratio-"+c.name)
 		}
 	}
+}
+
+// savedOptimizer returns an optimiser (two threads, default parameters) on
+// the P and newest state of the run directory named by NIGHTJAR_BENCH_RUN,
+// or skips the benchmark if the variable is not set.
+func savedOptimizer(b *testing.B) *Optimizer {
+	dir := os.Getenv("NIGHTJAR_BENCH_RUN")
+	if dir == "" {
+		b.Skip("set NIGHTJAR_BENCH_RUN to a run directory with a saved P and state")
+	}
+	p, y := loadSavedRun(b, dir)
+	params := DefaultParams(p.N)
+	params.Threads = 2
+	o, err := NewConsume(p, y, params)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return o
 }
 
 // loadSavedRun returns the P of the run directory dir (its affinities file,
@@ -115,17 +123,7 @@ func loadSavedRun(b *testing.B, dir string) (core.CSR, []float64) {
 // each one's median seconds, their ratio, and the relative difference of
 // their values.
 func BenchmarkSavedKL(b *testing.B) {
-	dir := os.Getenv("NIGHTJAR_BENCH_RUN")
-	if dir == "" {
-		b.Skip("set NIGHTJAR_BENCH_RUN to a run directory with a saved P and state")
-	}
-	p, y := loadSavedRun(b, dir)
-	params := DefaultParams(p.N)
-	params.Threads = 2
-	o, err := NewConsume(p, y, params)
-	if err != nil {
-		b.Fatal(err)
-	}
+	o := savedOptimizer(b)
 	if !o.sym {
 		b.Fatal("the saved P is not symmetric")
 	}
