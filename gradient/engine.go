@@ -61,7 +61,7 @@ type engine struct {
 	rep    []float64   // unnormalised repulsive sums Σ_j w^(1+1/α)(y_i − y_j), N×dims
 	zBlock []float64   // per-block partial sums of Z
 	kBlock []float64   // per-block partial sums of Σ p ln w
-	dist   [][]float64 // each worker's squared distances of a row (sumPLogWUpper)
+	dist   [][]float64 // each worker's squared distances of a row (sumPLogW)
 	tree   *bhTree
 	grid   *fftGrid
 }
@@ -184,43 +184,12 @@ func (e *engine) exactRepulsion(y []float64) float64 {
 	return par.Sum(e.zBlock[:nb])
 }
 
-// sumPLogW returns Σ_ij p_ij ln w_ij with w evaluated at y − shift (shift may
-// be nil). Subtracting a per-row shift lets the optimiser recover the
-// distances of the previous iterate from Y and the last update.
-func (e *engine) sumPLogW(y, shift []float64) float64 {
-	off, cols, vals := e.p.Offsets, e.p.Cols, e.p.Vals
-	d := e.dims
-	alpha, invA := e.alpha, 1/e.alpha
-	nb := (e.n + rowBlock - 1) / rowBlock
-	e.kBlock = growFloats(e.kBlock, nb)
-	par.Blocks(e.n, rowBlock, e.threads, func(_, b, lo, hi int) {
-		var s float64
-		for i := lo; i < hi; i++ {
-			for k := off[i]; k < off[i+1]; k++ {
-				j := int(cols[k])
-				var d2 float64
-				for c := 0; c < d; c++ {
-					diff := y[i*d+c] - y[j*d+c]
-					if shift != nil {
-						diff -= shift[i*d+c] - shift[j*d+c]
-					}
-					d2 += diff * diff
-				}
-				// ln w = −α ln(1 + d²/α)
-				s += float64(vals[k]) * (-alpha * math.Log1p(d2*invA))
-			}
-		}
-		e.kBlock[b] = s
-	})
-	return par.Sum(e.kBlock[:nb])
-}
-
-// sumPLogWUpper returns Σ_ij p_ij ln w_ij at y for a symmetric P
-// (symmetric), reading in each row only the entries right of the diagonal
-// and counting them twice: p_ij = p_ji, and w_ij = w_ji to the last bit,
-// since y_j − y_i is exactly −(y_i − y_j). It reads half of P and takes half
-// the logarithms of sumPLogW, whose value it gives up to rounding.
-func (e *engine) sumPLogWUpper(y []float64) float64 {
+// sumPLogW returns Σ_ij p_ij ln w_ij at y. With half, P must be symmetric
+// (see symmetric): it reads in each row only the entries right of the
+// diagonal and counts them twice — p_ij = p_ji, and w_ij = w_ji to the last
+// bit, since y_j − y_i is exactly −(y_i − y_j) — which reads half of P,
+// takes half the logarithms, and gives the whole sum up to rounding.
+func (e *engine) sumPLogW(y []float64, half bool) float64 {
 	off, cols, vals := e.p.Offsets, e.p.Cols, e.p.Vals
 	d := e.dims
 	invA := 1 / e.alpha
@@ -233,8 +202,10 @@ func (e *engine) sumPLogWUpper(y []float64) float64 {
 		var s float64
 		for i := lo; i < hi; i++ {
 			a, z := off[i], off[i+1]
-			k0, _ := slices.BinarySearch(cols[a:z], int32(i))
-			a += int64(k0)
+			if half {
+				k0, _ := slices.BinarySearch(cols[a:z], int32(i))
+				a += int64(k0)
+			}
 			// The distances first, in a loop of their own: its reads of
 			// scattered positions do not wait on each other, where a
 			// logarithm between two of them keeps few in flight.
@@ -257,8 +228,12 @@ func (e *engine) sumPLogWUpper(y []float64) float64 {
 		}
 		e.kBlock[b] = s
 	})
-	// ln w = −α ln(1 + d²/α), and each pair counts twice.
-	return -2 * e.alpha * par.Sum(e.kBlock[:nb])
+	// ln w = −α ln(1 + d²/α)
+	sum := -e.alpha * par.Sum(e.kBlock[:nb])
+	if half {
+		return 2 * sum
+	}
+	return sum
 }
 
 // sumPLogP returns Σ p ln p over the non-zeros of P (0 ln 0 = 0) and Σ p.
@@ -318,7 +293,7 @@ func Gradient(p core.CSR, y []float64, params Params, exaggeration float64, grad
 		return 0, fmt.Errorf("gradient: normalisation Z = %v is not finite and positive", z)
 	}
 	plogp, psum := sumPLogP(p)
-	return plogp - e.sumPLogW(y, nil) + psum*math.Log(z), nil
+	return plogp - e.sumPLogW(y, false) + psum*math.Log(z), nil
 }
 
 // KLExact returns KL(P‖Q) at y (N×dims, row-major) with the kernel of dof
@@ -339,5 +314,5 @@ func KLExact(p core.CSR, y []float64, dims int, dof float64) float64 {
 	e, _ := newEngine(p, params)
 	z := e.exactRepulsion(y)
 	plogp, psum := sumPLogP(p)
-	return plogp - e.sumPLogW(y, nil) + psum*math.Log(z)
+	return plogp - e.sumPLogW(y, false) + psum*math.Log(z)
 }
