@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"os"
+	"strconv"
 	"testing"
 
 	"nightjar/internal/core"
@@ -200,15 +202,25 @@ func BenchmarkGridSettings(b *testing.B) {
 // 4-byte value), summed by one and by two threads. b.SetBytes makes the
 // benchmark print the bandwidth (MB/s); the attractive pass at N rows reads
 // 8·nnz(P) bytes plus the map, so nnz·8/bandwidth is the least it can take.
+// NIGHTJAR_BENCH_READ_GIB sets another size in GiB (10 for a P of 10^7
+// rows, which then occupies as much memory).
 func BenchmarkMemoryRead(b *testing.B) {
-	const words = 1 << 28 // 1 GiB of float32
+	gib := 1
+	if v := os.Getenv("NIGHTJAR_BENCH_READ_GIB"); v != "" {
+		n, err := strconv.Atoi(v)
+		if err != nil || n < 1 {
+			b.Fatalf("NIGHTJAR_BENCH_READ_GIB=%q: want a whole number of GiB, at least 1", v)
+		}
+		gib = n
+	}
+	words := gib << 28 // gib GiB of float32
 	data := make([]float32, words)
 	for i := range data {
 		data[i] = float32(i & 1023)
 	}
 	for _, threads := range []int{1, 2} {
 		b.Run(fmt.Sprintf("threads=%d", threads), func(b *testing.B) {
-			b.SetBytes(4 * words)
+			b.SetBytes(4 * int64(words))
 			sums := make([]float32, threads)
 			for range b.N {
 				done := make(chan struct{})

@@ -63,6 +63,46 @@ func BenchmarkSavedAttraction(b *testing.B) {
 	}
 }
 
+// BenchmarkSavedLocality measures what the attractive pass loses to
+// positions scattered in memory, on the P and newest state of a real run
+// directory (NIGHTJAR_BENCH_RUN, as BenchmarkSavedAttraction). It times the
+// pass on P as it is, then overwrites P's columns so that row i's entries
+// point at rows i, i+1, i+2, … (clamped at the last row; same offsets, same
+// values, so the same bytes are streamed and the same arithmetic done) and
+// times it again: the pass as it would be if every position it reads sat
+// next to its row. It reports both medians and their ratio. P is spoilt
+// afterwards, so nothing else runs on it.
+func BenchmarkSavedLocality(b *testing.B) {
+	o := savedOptimizer(b)
+	p := o.eng.p
+	pass := func() float64 {
+		t0 := time.Now()
+		o.eng.attraction(o.y, 1, 0, o.g)
+		return time.Since(t0).Seconds()
+	}
+	var spread, near []float64
+	b.ResetTimer()
+	for range b.N {
+		spread = append(spread, pass())
+	}
+	b.StopTimer()
+	last := int64(p.N - 1)
+	for i := range int64(p.N) {
+		for k := p.Offsets[i]; k < p.Offsets[i+1]; k++ {
+			p.Cols[k] = int32(min(i+k-p.Offsets[i], last))
+		}
+	}
+	b.StartTimer()
+	for range b.N {
+		near = append(near, pass())
+	}
+	b.StopTimer()
+	mr, mn := bench.Median(spread), bench.Median(near)
+	b.ReportMetric(mr, "s/pass-real")
+	b.ReportMetric(mn, "s/pass-adjacent")
+	b.ReportMetric(mn/mr, "ratio")
+}
+
 // savedOptimizer returns an optimiser (two threads, default parameters) on
 // the P and newest state of the run directory named by NIGHTJAR_BENCH_RUN,
 // or skips the benchmark if the variable is not set.
