@@ -34,9 +34,39 @@ func (j *job) finish(y []float64) error {
 	if j.rt.ScoreSample > 0 {
 		t1 := time.Now()
 		j.obs.Note(fmt.Sprintf("scoring the map on %d sampled rows", min(j.rt.ScoreSample, t.N)))
-		if q, err := j.scoreRun(y, labels); err != nil {
+		// The scores take minutes at 10⁷ rows, longer than a batch
+		// system waits after its stop signal: a stop abandons them (the
+		// goroutine's result is dropped; it reads and writes nothing of
+		// the run directory) and they are redone on resume, like the
+		// outputs.
+		x, err := j.features()
+		if err != nil {
 			j.warn("no scores: " + err.Error())
 		} else {
+			type scored struct {
+				q             Quality
+				note, warning string
+			}
+			done := make(chan scored, 1)
+			go func() {
+				q, note, warning := j.scoreRun(x, y, labels)
+				done <- scored{q, note, warning}
+			}()
+			var r scored
+			select {
+			case r = <-done:
+			case <-j.ctx.Done():
+			}
+			if j.ctx.Err() != nil {
+				return j.stopped(j.rep.Optimiser.Iterations, false)
+			}
+			if r.warning != "" {
+				j.warn(r.warning)
+			}
+			if r.note != "" {
+				j.obs.Note(r.note)
+			}
+			q := r.q
 			q.KL, q.KLMethod = finalKL(j.P, y, j.s, j.rep.Optimiser.KL)
 			j.rep.Quality = &q
 			j.rep.Phases["scores"] = time.Since(t1).Seconds()

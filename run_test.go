@@ -97,6 +97,65 @@ func TestEmbedStopResumeSameBits(t *testing.T) {
 	}
 }
 
+// cancelOnNote cancels the context when the run notes a line that begins
+// with prefix.
+type cancelOnNote struct {
+	quietObserver
+	prefix string
+	cancel context.CancelFunc
+}
+
+func (c *cancelOnNote) Note(text string) {
+	if strings.HasPrefix(text, c.prefix) {
+		c.cancel()
+	}
+}
+
+// TestEmbedStopDuringScores stops a run while it scores its finished map:
+// the run stops without its scores (they can take longer than a batch
+// system waits after its stop signal), and the resumed run ends with the
+// map and the scores of an uninterrupted one.
+func TestEmbedStopDuringScores(t *testing.T) {
+	x, lab := blobs(300, 5, 3)
+	s := DefaultSettings()
+	s.Perplexity, s.Iterations, s.EarlyIterations = 15, 120, 40
+	rt := DefaultRuntime()
+	rt.CheckpointEvery, rt.ScoreSample = 50, 100
+	dir := t.TempDir()
+	whole, err := Embed(context.Background(), FromMatrix(x, nil, lab), filepath.Join(dir, "whole"), s, rt, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	cut := filepath.Join(dir, "cut")
+	_, err = Embed(ctx, FromMatrix(x, nil, lab), cut, s, rt, &cancelOnNote{prefix: "scoring the map", cancel: cancel})
+	var stop *StoppedError
+	if !errors.As(err, &stop) || stop.Phase != PhaseOutputs || stop.Iteration != s.Iterations {
+		t.Fatalf("Embed stopped in the scores: %v (%+v), want a StoppedError in phase %q after %d iterations", err, stop, PhaseOutputs, s.Iterations)
+	}
+	if _, err := os.Stat(filepath.Join(cut, FileReport)); err == nil {
+		t.Errorf("%s written by a run stopped before its scores", FileReport)
+	}
+	st, err := Status(cut)
+	if err != nil || st.Status != StatusInterrupted {
+		t.Fatalf("Status = %+v, %v; want interrupted", st, err)
+	}
+	res, err := Resume(context.Background(), cut, rt, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range res.Map {
+		if math.Float64bits(res.Map[i]) != math.Float64bits(whole.Map[i]) {
+			t.Fatalf("value %d: resumed %v, whole %v", i, res.Map[i], whole.Map[i])
+		}
+	}
+	a, b := whole.Report.Quality, res.Report.Quality
+	if a == nil || b == nil || a.Trustworthiness != b.Trustworthiness || a.Continuity != b.Continuity {
+		t.Errorf("scores: whole %+v, resumed %+v; want the same", a, b)
+	}
+}
+
 // TestEmbedThreadsSameBits checks the promise of the par package end to
 // end: 1 and 3 threads give the same map bits.
 func TestEmbedThreadsSameBits(t *testing.T) {

@@ -58,30 +58,28 @@ func tableSpace(metric string, red *Reduced) scoreSpace {
 	return scoreSpace{name: "input features, Euclidean distance"}
 }
 
-// scoreRun scores the finished map y of the job's table: in the table's
-// space, and for a reduced run also against the original features on the
-// sample (one more pass over the input).
-func (j *job) scoreRun(y []float64, labels []string) (Quality, error) {
+// scoreRun scores the finished map y of the job's table, whose features
+// are x: in the table's space, and for a reduced run also against the
+// original features on the sample (one more pass over the input). It
+// touches neither the run directory nor the observer, so that a stop can
+// abandon it: what it has to say comes back as a note and a warning.
+func (j *job) scoreRun(x Matrix, y []float64, labels []string) (q Quality, note, warning string) {
 	t := *j.table // a copy, to hold the features read back without keeping them
-	x, err := j.features()
-	if err != nil {
-		return Quality{}, err
-	}
 	t.Matrix = x
-	q := scoreMap(t.Matrix, y, j.s.Dims, labels, scoreK, j.rt.ScoreSample, j.s.Seed, j.rt.Threads, tableSpace(j.s.Metric, j.rep.Reduced))
+	q = scoreMap(t.Matrix, y, j.s.Dims, labels, scoreK, j.rt.ScoreSample, j.s.Seed, j.rt.Threads, tableSpace(j.s.Metric, j.rep.Reduced))
 	if j.rep.Reduced != nil {
 		t0 := time.Now()
 		rows := score.Sample(t.N, j.rt.ScoreSample, j.s.Seed+2)
 		o, err := sampleScores(j.s, j.rt.Threads, &t, j.rep.Reduced, rows, y, q.K)
 		if err != nil {
-			j.warn("no scores against the original features: " + err.Error())
+			warning = "no scores against the original features: " + err.Error()
 		} else {
 			q.Original = o
-			j.obs.Note(fmt.Sprintf("trustworthiness@%d among the %d sampled rows: %.4f against the original features, %.4f against the components", o.K, o.Rows, o.Trustworthiness, o.TrustworthinessIn))
+			note = fmt.Sprintf("trustworthiness@%d among the %d sampled rows: %.4f against the original features, %.4f against the components", o.K, o.Rows, o.Trustworthiness, o.TrustworthinessIn)
 		}
 		q.Seconds += time.Since(t0).Seconds()
 	}
-	return q, nil
+	return q, note, warning
 }
 
 // scoreK is the neighbourhood size of the scores (trustworthiness@10 is the
