@@ -36,9 +36,9 @@ func (j *job) finish(y []float64) error {
 		j.obs.Note(fmt.Sprintf("scoring the map on %d sampled rows", min(j.rt.ScoreSample, t.N)))
 		// The scores take minutes at 10⁷ rows, longer than a batch
 		// system waits after its stop signal: a stop abandons them (the
-		// goroutine's result is dropped; it reads and writes nothing of
-		// the run directory) and they are redone on resume, like the
-		// outputs.
+		// goroutine's result is dropped; it writes nothing, and reads
+		// only the input table, not the files a stop rewrites) and they
+		// are redone on resume, like the outputs.
 		x, err := j.features()
 		if err != nil {
 			j.warn("no scores: " + err.Error())

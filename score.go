@@ -61,8 +61,8 @@ func tableSpace(metric string, red *Reduced) scoreSpace {
 // scoreRun scores the finished map y of the job's table, whose features
 // are x: in the table's space, and for a reduced run also against the
 // original features on the sample (one more pass over the input). It
-// touches neither the run directory nor the observer, so that a stop can
-// abandon it: what it has to say comes back as a note and a warning.
+// writes nothing and calls no observer, so that a stop can abandon it:
+// what it has to say comes back as a note and a warning.
 func (j *job) scoreRun(x Matrix, y []float64, labels []string) (q Quality, note, warning string) {
 	t := *j.table // a copy, to hold the features read back without keeping them
 	t.Matrix = x
