@@ -145,6 +145,9 @@ func TestEmbedStopDuringScores(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	if len(res.Map) != len(whole.Map) {
+		t.Fatalf("resumed map has %d values, whole %d", len(res.Map), len(whole.Map))
+	}
 	for i := range res.Map {
 		if math.Float64bits(res.Map[i]) != math.Float64bits(whole.Map[i]) {
 			t.Fatalf("value %d: resumed %v, whole %v", i, res.Map[i], whole.Map[i])
