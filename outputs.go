@@ -35,38 +35,26 @@ func (j *job) finish(y []float64) error {
 		t1 := time.Now()
 		j.obs.Note(fmt.Sprintf("scoring the map on %d sampled rows", min(j.rt.ScoreSample, t.N)))
 		// The scores take minutes at 10⁷ rows, longer than a batch
-		// system waits after its stop signal: a stop abandons them (the
-		// goroutine's result is dropped; it writes nothing, and reads
-		// only the input table, not the files a stop rewrites) and they
-		// are redone on resume, like the outputs.
+		// system waits after its stop signal: a stop abandons them, and
+		// they are redone on resume, like the outputs.
 		x, err := j.features()
 		if err != nil {
 			j.warn("no scores: " + err.Error())
 		} else {
-			type scored struct {
-				q             Quality
-				note, warning string
+			var q Quality
+			var note, warning string
+			if err := j.await(func() error {
+				q, note, warning = j.scoreRun(x, y, labels)
+				return nil
+			}); err != nil {
+				return err
 			}
-			done := make(chan scored, 1)
-			go func() {
-				q, note, warning := j.scoreRun(x, y, labels)
-				done <- scored{q, note, warning}
-			}()
-			var r scored
-			select {
-			case r = <-done:
-			case <-j.ctx.Done():
+			if warning != "" {
+				j.warn(warning)
 			}
-			if j.ctx.Err() != nil {
-				return j.stopped(j.rep.Optimiser.Iterations, false)
+			if note != "" {
+				j.obs.Note(note)
 			}
-			if r.warning != "" {
-				j.warn(r.warning)
-			}
-			if r.note != "" {
-				j.obs.Note(r.note)
-			}
-			q := r.q
 			q.KL, q.KLMethod = finalKL(j.P, y, j.s, j.rep.Optimiser.KL)
 			j.rep.Quality = &q
 			j.rep.Phases["scores"] = time.Since(t1).Seconds()

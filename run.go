@@ -391,13 +391,15 @@ func (j *job) stopped(iteration int, saved bool) error {
 	return &StoppedError{Dir: j.run.Dir, Phase: j.run.Manifest().Phase, Iteration: iteration, Saved: saved, Err: context.Cause(j.ctx)}
 }
 
-// await runs fn, a phase before the optimiser, and returns its error, or
-// returns at once when the context is cancelled: the phase is then
-// abandoned (fn finishes in the background and its result is dropped; it
-// writes nothing to the run directory) and redone on resume.
+// await runs fn, a phase before the optimiser or the scores after it, and
+// returns its error, or returns at once when the context is cancelled: the
+// phase is then abandoned (fn finishes in the background and its result is
+// dropped; it writes nothing, and reads no file that a stop rewrites) and
+// redone on resume. The StoppedError counts the optimiser's iterations
+// done: none before it.
 func (j *job) await(fn func() error) error {
 	if j.ctx.Err() != nil {
-		return j.stopped(0, false)
+		return j.stopped(j.rep.Optimiser.Iterations, false)
 	}
 	done := make(chan error, 1)
 	go func() { done <- fn() }()
@@ -405,7 +407,7 @@ func (j *job) await(fn func() error) error {
 	case err := <-done:
 		return err
 	case <-j.ctx.Done():
-		return j.stopped(0, false)
+		return j.stopped(j.rep.Optimiser.Iterations, false)
 	}
 }
 

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -46,57 +47,6 @@ func (c *cancelAt) Progress(done, _ int64) {
 	}
 }
 
-// TestEmbedStopResumeSameBits stops an in-memory run in the optimiser
-// through its context and resumes it: the run directory keeps what it needs
-// (the saved table, the graph, P and a state), and the resumed map has the
-// bits of an uninterrupted run.
-func TestEmbedStopResumeSameBits(t *testing.T) {
-	x, lab := blobs(400, 6, 3)
-	s := DefaultSettings()
-	s.Perplexity, s.Iterations, s.EarlyIterations = 15, 200, 50
-	rt := DefaultRuntime()
-	rt.CheckpointEvery, rt.ScoreSample = 40, 0
-	dir := t.TempDir()
-
-	whole, err := Embed(context.Background(), FromMatrix(x, nil, lab), filepath.Join(dir, "whole"), s, rt, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	defer cancel()
-	stopper := &cancelAt{at: 90, cancel: cancel}
-	_, err = Embed(ctx, FromMatrix(x, nil, lab), filepath.Join(dir, "cut"), s, rt, stopper)
-	var stop *StoppedError
-	if !errors.As(err, &stop) || !stop.Saved || stop.Iteration < 90 || stop.Iteration >= s.Iterations {
-		t.Fatalf("Embed after cancel: %v (%+v), want a StoppedError with a checkpoint past 90", err, stop)
-	}
-	st, err := Status(filepath.Join(dir, "cut"))
-	if err != nil || st.Status != StatusInterrupted || st.ResumeCommand == "" {
-		t.Fatalf("Status = %+v, %v; want interrupted with a resume command", st, err)
-	}
-	res, err := Resume(context.Background(), filepath.Join(dir, "cut"), rt, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if len(res.Map) != len(whole.Map) {
-		t.Fatalf("resumed map has %d values, whole %d", len(res.Map), len(whole.Map))
-	}
-	for i := range res.Map {
-		if math.Float64bits(res.Map[i]) != math.Float64bits(whole.Map[i]) {
-			t.Fatalf("value %d: resumed %v, whole %v", i, res.Map[i], whole.Map[i])
-		}
-	}
-	a, _ := os.ReadFile(whole.Embedding)
-	b, _ := os.ReadFile(res.Embedding)
-	if !bytes.Equal(a, b) {
-		t.Error("embedding.parquet differs between the resumed and the whole run")
-	}
-	again, err := Resume(context.Background(), filepath.Join(dir, "cut"), rt, nil)
-	if err != nil || !again.AlreadyFinished {
-		t.Errorf("Resume of a finished run: %+v, %v", again, err)
-	}
-}
-
 // cancelOnNote cancels the context when the run notes a line that begins
 // with prefix.
 type cancelOnNote struct {
@@ -111,51 +61,89 @@ func (c *cancelOnNote) Note(text string) {
 	}
 }
 
-// TestEmbedStopDuringScores stops a run while it scores its finished map:
-// the run stops without its scores (they can take longer than a batch
-// system waits after its stop signal), and the resumed run ends with the
-// map and the scores of an uninterrupted one.
-func TestEmbedStopDuringScores(t *testing.T) {
-	x, lab := blobs(300, 5, 3)
+// TestEmbedStopResumeSameBits stops an in-memory run through its context,
+// as a signal would, and resumes it: in the optimiser, the run directory
+// keeps what it needs (the saved table, the graph, P and a state); in the
+// scores, which can take longer than a batch system waits after its stop
+// signal, the run stops without them. Either way the resumed run ends with
+// the map bits and the scores of an uninterrupted one.
+func TestEmbedStopResumeSameBits(t *testing.T) {
+	x, lab := blobs(400, 6, 3)
 	s := DefaultSettings()
-	s.Perplexity, s.Iterations, s.EarlyIterations = 15, 120, 40
+	s.Perplexity, s.Iterations, s.EarlyIterations = 15, 200, 50
 	rt := DefaultRuntime()
-	rt.CheckpointEvery, rt.ScoreSample = 50, 100
+	rt.CheckpointEvery, rt.ScoreSample = 40, 100
 	dir := t.TempDir()
 	whole, err := Embed(context.Background(), FromMatrix(x, nil, lab), filepath.Join(dir, "whole"), s, rt, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
-	ctx, cancel := context.WithCancel(context.Background())
-	defer cancel()
-	cut := filepath.Join(dir, "cut")
-	_, err = Embed(ctx, FromMatrix(x, nil, lab), cut, s, rt, &cancelOnNote{prefix: "scoring the map", cancel: cancel})
-	var stop *StoppedError
-	if !errors.As(err, &stop) || stop.Phase != PhaseOutputs || stop.Iteration != s.Iterations {
-		t.Fatalf("Embed stopped in the scores: %v (%+v), want a StoppedError in phase %q after %d iterations", err, stop, PhaseOutputs, s.Iterations)
+	cases := []struct {
+		name    string
+		stopper func(context.CancelFunc) Observer
+		check   func(stop *StoppedError, cut string) error
+	}{
+		{"optimiser", func(c context.CancelFunc) Observer { return &cancelAt{at: 90, cancel: c} },
+			func(stop *StoppedError, _ string) error {
+				if !stop.Saved || stop.Iteration < 90 || stop.Iteration >= s.Iterations {
+					return fmt.Errorf("want a checkpoint past 90")
+				}
+				return nil
+			}},
+		{"scores", func(c context.CancelFunc) Observer { return &cancelOnNote{prefix: "scoring the map", cancel: c} },
+			func(stop *StoppedError, cut string) error {
+				if stop.Phase != PhaseOutputs || stop.Iteration != s.Iterations {
+					return fmt.Errorf("want phase %q after %d iterations", PhaseOutputs, s.Iterations)
+				}
+				if _, err := os.Stat(filepath.Join(cut, FileReport)); err == nil {
+					return fmt.Errorf("%s written by a run stopped before its scores", FileReport)
+				}
+				return nil
+			}},
 	}
-	if _, err := os.Stat(filepath.Join(cut, FileReport)); err == nil {
-		t.Errorf("%s written by a run stopped before its scores", FileReport)
-	}
-	st, err := Status(cut)
-	if err != nil || st.Status != StatusInterrupted {
-		t.Fatalf("Status = %+v, %v; want interrupted", st, err)
-	}
-	res, err := Resume(context.Background(), cut, rt, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if len(res.Map) != len(whole.Map) {
-		t.Fatalf("resumed map has %d values, whole %d", len(res.Map), len(whole.Map))
-	}
-	for i := range res.Map {
-		if math.Float64bits(res.Map[i]) != math.Float64bits(whole.Map[i]) {
-			t.Fatalf("value %d: resumed %v, whole %v", i, res.Map[i], whole.Map[i])
-		}
-	}
-	a, b := whole.Report.Quality, res.Report.Quality
-	if a == nil || b == nil || a.Trustworthiness != b.Trustworthiness || a.Continuity != b.Continuity {
-		t.Errorf("scores: whole %+v, resumed %+v; want the same", a, b)
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			ctx, cancel := context.WithCancel(context.Background())
+			defer cancel()
+			cut := filepath.Join(dir, c.name)
+			_, err := Embed(ctx, FromMatrix(x, nil, lab), cut, s, rt, c.stopper(cancel))
+			var stop *StoppedError
+			if !errors.As(err, &stop) {
+				t.Fatalf("Embed after cancel: %v, want a StoppedError", err)
+			}
+			if err := c.check(stop, cut); err != nil {
+				t.Fatalf("Embed after cancel: %+v: %v", stop, err)
+			}
+			st, err := Status(cut)
+			if err != nil || st.Status != StatusInterrupted || st.ResumeCommand == "" {
+				t.Fatalf("Status = %+v, %v; want interrupted with a resume command", st, err)
+			}
+			res, err := Resume(context.Background(), cut, rt, nil)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if len(res.Map) != len(whole.Map) {
+				t.Fatalf("resumed map has %d values, whole %d", len(res.Map), len(whole.Map))
+			}
+			for i := range res.Map {
+				if math.Float64bits(res.Map[i]) != math.Float64bits(whole.Map[i]) {
+					t.Fatalf("value %d: resumed %v, whole %v", i, res.Map[i], whole.Map[i])
+				}
+			}
+			a, _ := os.ReadFile(whole.Embedding)
+			b, _ := os.ReadFile(res.Embedding)
+			if !bytes.Equal(a, b) {
+				t.Error("embedding.parquet differs between the resumed and the whole run")
+			}
+			qa, qb := whole.Report.Quality, res.Report.Quality
+			if qa == nil || qb == nil || qa.Trustworthiness != qb.Trustworthiness || qa.Continuity != qb.Continuity {
+				t.Errorf("scores: whole %+v, resumed %+v; want the same", qa, qb)
+			}
+			again, err := Resume(context.Background(), cut, rt, nil)
+			if err != nil || !again.AlreadyFinished {
+				t.Errorf("Resume of a finished run: %+v, %v", again, err)
+			}
+		})
 	}
 }
 
